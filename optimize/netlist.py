@@ -1,0 +1,78 @@
+"""SPICE netlists of sized designs: a subcircuit per design and a testbench that runs as it is in ngspice.
+
+The subcircuit contract, identical for every topology: `.subckt <name> inp inn out vdd vss`, holding the
+amplifier, its bias network and compensation, and nothing else (no sources, analyses or model cards).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from topologies.base import PORTS, Build, Conditions
+from topologies.process.base import Technology
+
+RESULT_TAG = "ampfront:"  # testbench result lines start with this, so a parser can find them
+
+
+def _at(values, i: int) -> float:
+    return float(np.asarray(values).reshape(-1)[i] if np.ndim(values) else values)
+
+
+def subckt(build: Build, i: int, tech: Technology, name: str, title: str = "") -> str:
+    lines = [f"* {title or name}: sized by ampfront (pre-layout estimate)",
+             f".subckt {name} {' '.join(PORTS)}"]
+    for d in build.devices:
+        lines.append(tech.spice_instance(d.role, d.polarity, d.nodes, _at(d.w, i), _at(d.l, i)))
+    for e in build.elements:
+        lines.append(f"{e.kind}{e.role} {e.a} {e.b} {_at(e.value, i):.6g}")
+    lines.append(f".ends {name}")
+    return "\n".join(lines) + "\n"
+
+
+def model_lines(build: Build, i: int, tech: Technology) -> list[str]:
+    lengths: dict[str, set[float]] = {"n": set(), "p": set()}
+    for d in build.devices:
+        lengths[d.polarity].add(_at(d.l, i))
+    return tech.spice_models(lengths)
+
+
+def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: str, subckt_file: str) -> str:
+    """Open-loop testbench: DC loop closed through a large inductor (unity-gain follower at DC), the
+    inverting input held at AC ground by a large capacitor, an AC source on the non-inverting input."""
+    rl = (f"Rload out cm {cond.r_load:.6g}" if np.isfinite(cond.r_load)
+          else "* no load resistance in the spec")
+    tag = RESULT_TAG
+    return "\n".join([
+        f"* ampfront testbench for {name}: open-loop gain, GBW, phase margin and supply current",
+        *model_lines(build, i, tech),
+        f".include {subckt_file}",
+        f"Vsupply vdd 0 {cond.vdd:.6g}",
+        "Vground vss 0 0",
+        f"Vcm cm 0 {cond.v_cm:.6g}",
+        "Vin inp cm dc 0 ac 1",
+        f"Xamp inp inn out vdd vss {name}",
+        "Lloop out inn 1e9",
+        "Cloop inn cm 1",
+        f"Cload out 0 {cond.c_load:.6g}",
+        rl,
+        ".control",
+        "set noaskquit",
+        "op",
+        "let supply_current_ua = -i(vsupply) * 1e6",
+        "let out_dc_mv = v(out) * 1e3",
+        f"echo {tag} supply_current_ua $&supply_current_ua",
+        f"echo {tag} out_dc_mv $&out_dc_mv",
+        "ac dec 40 0.1 1e12",
+        "let gain_db_vec = vdb(out)",
+        "let phase_vec = 180 / pi * cph(v(out))",
+        "meas ac gain_db find gain_db_vec at=0.1",
+        "meas ac gbw_hz when gain_db_vec=0 fall=1",
+        "meas ac phase_at_gbw find phase_vec at=gbw_hz",
+        "let phase_margin = 180 + phase_at_gbw",
+        f"echo {tag} gain_db $&gain_db",
+        f"echo {tag} gbw_hz $&gbw_hz",
+        f"echo {tag} phase_margin_deg $&phase_margin",
+        ".endc",
+        ".end",
+        "",
+    ])

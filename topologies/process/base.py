@@ -1,0 +1,79 @@
+"""The technology interface every process model implements.
+
+Voltages are magnitudes in the device's own sense (VGS, VDS, VSB for an nMOS; VSG, VSD, VBS for a pMOS),
+so topologies size both polarities with one set of formulas. All arguments broadcast as numpy arrays; all
+values are SI (A, V, S, F, m).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Literal, Protocol, runtime_checkable
+
+import numpy as np
+
+Polarity = Literal["n", "p"]
+
+
+@dataclass
+class OperatingPoint:
+    """Small-signal view of one device group at its bias, one entry per design."""
+
+    id: np.ndarray      # drain current, A
+    gm: np.ndarray      # S
+    gds: np.ndarray     # S
+    gmb: np.ndarray     # S
+    cgs: np.ndarray     # F, including overlap
+    cgd: np.ndarray     # F, overlap (saturation)
+    cgb: np.ndarray     # F
+    cdb: np.ndarray     # F, drain junction at its bias
+    csb: np.ndarray     # F, source junction at its bias
+    vth: np.ndarray     # V, threshold at this VSB
+    vdsat: np.ndarray   # V, drain-source voltage at which the device leaves saturation
+
+
+@dataclass(frozen=True)
+class Geometry:
+    """Layout-independent sizes of a device group: W and L in m, plus the junction areas the netlist needs."""
+
+    w: np.ndarray
+    l: np.ndarray
+
+
+@runtime_checkable
+class Technology(Protocol):
+    """A process as ampfront sees it: device physics, a few limits, and how to write it for SPICE."""
+
+    name: str
+    supply: float          # nominal supply, V
+    temperature: float     # K
+    l_min: float           # m
+    l_max: float           # m
+    w_min: float           # m
+    cap_density: float     # F/m^2 of the compensation capacitor
+    gm_id_bounds: tuple[float, float]  # S/A range the model is valid over
+
+    def operating_point(self, polarity: Polarity, w, l, vgs, vds, vsb) -> OperatingPoint: ...
+
+    def current(self, polarity: Polarity, w, l, vgs, vds, vsb) -> np.ndarray: ...
+
+    def vgs_for_current(self, polarity: Polarity, w, l, i_d, vds, vsb) -> np.ndarray: ...
+
+    def size(self, polarity: Polarity, gm_id, l, i_d, vds, vsb) -> tuple[np.ndarray, np.ndarray]:
+        """Width (m) and VGS (V) giving drain current i_d at transconductance efficiency gm_id."""
+        ...
+
+    def spice_instance(self, name: str, polarity: Polarity, nodes: tuple[str, str, str, str],
+                       w: float, l: float) -> str: ...
+
+    def spice_models(self, lengths: dict[Polarity, set[float]]) -> list[str]:
+        """Lines a testbench needs before the subcircuit can be simulated (model cards or includes)."""
+        ...
+
+
+def diode_vgs(tech: Technology, polarity: Polarity, w, l, i_d, vsb=0.0, iterations: int = 4):
+    """VGS of a diode-connected device (VDS = VGS) carrying i_d, by fixed-point iteration."""
+    vgs = tech.vgs_for_current(polarity, w, l, i_d, np.full_like(np.asarray(i_d, float), 0.6), vsb)
+    for _ in range(iterations):
+        vgs = tech.vgs_for_current(polarity, w, l, i_d, vgs, vsb)
+    return vgs
