@@ -1,0 +1,62 @@
+"""Throughput of the models and overhead of the search, measured on the machine it runs on."""
+
+from __future__ import annotations
+
+import os
+import platform
+import time
+
+import numpy as np
+
+import topologies
+
+from .problem import DesignProblem
+from .search import run_search
+from .study import Study
+from .techfile import load, shipped
+
+
+def _machine() -> str:
+    cpu = platform.processor() or platform.machine()
+    try:
+        with open("/proc/cpuinfo") as handle:
+            cpu = next(line.split(":", 1)[1].strip() for line in handle if line.startswith("model name"))
+    except (OSError, StopIteration):
+        pass
+    return f"{cpu}, {os.cpu_count()} cores, Python {platform.python_version()}, numpy {np.__version__}"
+
+
+def _bench_study(tech_path) -> Study:
+    from topologies.base import Conditions
+
+    from .study import _constraints
+
+    spec = {"min_gain": 60.0, "min_gbw": 1e6, "min_phase_margin": 45.0}
+    return Study(path=tech_path, title="bench", spec=spec, conditions=Conditions(1.8, 2e-12, np.inf, 0.9),
+                 cm_range=(0.9, 0.9), constraints=_constraints(spec, (0.9, 0.9)), objectives=("power", "gbw"),
+                 topologies=("two_stage_miller",), technology=tech_path, population=100, generations=20,
+                 seed=1, digest="")
+
+
+def run_bench(designs: int, repeats: int) -> list[str]:
+    tech_path = shipped()["generic180"]
+    tech = load(tech_path)
+    study = _bench_study(tech_path)
+    lines = [f"machine: {_machine()}"]
+    for name, topology in topologies.available().items():
+        problem = DesignProblem(topology, tech, study)
+        X = np.random.default_rng(0).uniform(problem.xl, problem.xu, (designs, problem.n_var))
+        best = min(_timed(lambda: problem.evaluate(X)) for _ in range(repeats))
+        lines.append(f"{name} on {tech.name}: {designs / best:,.0f} designs/s (one process, {designs} per call)")
+        population, generations = 100, 20
+        wall = _timed(lambda: run_search(problem, population, generations, 1))
+        model = generations * population / (designs / best)
+        lines.append(f"{name}: search overhead {1e3 * (wall - model) / generations:.1f} ms per generation "
+                     f"(population {population}, NSGA-II, model time excluded)")
+    return lines
+
+
+def _timed(work) -> float:
+    start = time.perf_counter()
+    work()
+    return time.perf_counter() - start

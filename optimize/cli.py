@@ -1,0 +1,79 @@
+"""The `ampfront` command: a thin layer over optimize.run and friends."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import typer
+from rich.console import Console
+from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+from .errors import InputError
+
+app = typer.Typer(add_completion=False, pretty_exceptions_enable=False, no_args_is_help=True,
+                  help="Op-amp topology trade-off maps: sized designs on Pareto fronts, checked in SPICE.")
+err = Console(stderr=True)
+
+
+def _fail(message: str, code: int) -> None:
+    err.print(f"ampfront: {message}", markup=False, highlight=False, soft_wrap=True)
+    raise typer.Exit(code)
+
+
+@app.command()
+def run(study: Path = typer.Argument(..., help="study file (TOML)"),
+        out: Path = typer.Option(..., "--out", "-o", help="output folder (replaced if it exists)"),
+        seed: int = typer.Option(None, help="override the study's seed"),
+        quiet: bool = typer.Option(False, "--quiet", "-q", help="no progress bar")) -> None:
+    """Search every topology of STUDY and write report.html, front.csv, netlists/ and manifest.json."""
+    from .run import NoFeasibleDesign, run_study
+
+    bar = Progress(TextColumn("{task.description:<22}"), BarColumn(), MofNCompleteColumn(),
+                   TextColumn("gen · {task.fields[feasible]} feasible · HV {task.fields[hv]:.3f}"),
+                   TimeElapsedColumn(), console=err, disable=quiet or not err.is_terminal)
+
+    def factory(name: str, generations: int):
+        task = bar.add_task(name, total=generations, feasible=0, hv=0.0)
+        return lambda gen, feasible, hv: bar.update(task, completed=gen, feasible=feasible, hv=hv)
+
+    try:
+        with bar:
+            summary = run_study(study, out, seed, factory)
+    except InputError as error:
+        _fail(str(error), 2)
+    except NoFeasibleDesign as error:
+        _fail(str(error), 3)
+    err.print(f"{summary['front designs']} front designs from {summary['designs evaluated']} evaluated "
+              f"in {summary['wall time']} -> {out}/report.html", highlight=False)
+
+
+@app.command("topologies")
+def list_topologies() -> None:
+    """List the available topologies and their design variables."""
+    import topologies
+    from .techfile import load, shipped
+
+    tech = load(shipped()["generic180"])
+    for name, topology in topologies.available().items():
+        typer.echo(f"{name}  ({topology.title})")
+        for v in topology.variables(tech):
+            scale = "log" if v.log else "lin"
+            typer.echo(f"    {v.name:<12} {v.low:<10.4g} .. {v.high:<10.4g} {v.unit:<4} {scale}  {v.doc}")
+
+
+@app.command()
+def bench(designs: int = typer.Option(20000, help="population size per timing"),
+          repeats: int = typer.Option(3, help="timings to take the best of")) -> None:
+    """Designs evaluated per second, and the search's per-generation overhead, on this machine."""
+    from .bench import run_bench
+
+    for line in run_bench(designs, repeats):
+        typer.echo(line)
+
+
+def main() -> None:
+    try:
+        app()
+    except KeyboardInterrupt:
+        sys.exit(130)

@@ -1,0 +1,51 @@
+"""One generic adapter from any topology to a pymoo Problem (minimize F, feasible where G <= 0)."""
+
+from __future__ import annotations
+
+import numpy as np
+from pymoo.core.problem import Problem
+
+from topologies import evaluate
+from topologies.base import Topology
+from topologies.process.base import Technology
+
+from .study import OBJECTIVES, Study
+
+_BAD = 1e9  # stands in for a non-finite objective or violation (no crossing, dead device), so it loses
+
+
+def objective_matrix(metrics: dict[str, np.ndarray], objectives) -> np.ndarray:
+    columns = []
+    for name in objectives:
+        metric, sense, log = OBJECTIVES[name]
+        value = metrics[metric]
+        if log:
+            value = np.log10(np.maximum(value, 1e-30))
+        columns.append(-value if sense == "max" else value)
+    return np.nan_to_num(np.column_stack(columns), nan=_BAD, posinf=_BAD, neginf=_BAD)
+
+
+class DesignProblem(Problem):
+    def __init__(self, topology: Topology, tech: Technology, study: Study):
+        self.topology, self.tech, self.study = topology, tech, study
+        self.design_variables = topology.variables(tech)
+        low = [np.log10(v.low) if v.log else v.low for v in self.design_variables]
+        high = [np.log10(v.high) if v.log else v.high for v in self.design_variables]
+        super().__init__(n_var=len(low), n_obj=len(study.objectives),
+                         n_ieq_constr=len(study.constraints), xl=np.array(low), xu=np.array(high))
+        self.evaluations = 0
+
+    def decode(self, X: np.ndarray) -> dict[str, np.ndarray]:
+        X = np.atleast_2d(X)
+        return {v.name: 10.0 ** X[:, i] if v.log else X[:, i].copy()
+                for i, v in enumerate(self.design_variables)}
+
+    def metrics(self, X: np.ndarray):
+        return evaluate(self.topology, self.decode(X), self.tech, self.study.conditions)
+
+    def _evaluate(self, X, out, *args, **kwargs):
+        metrics, _ = self.metrics(X)
+        self.evaluations += len(X)
+        out["F"] = objective_matrix(metrics, self.study.objectives)
+        g = np.column_stack([c.violation(metrics) for c in self.study.constraints])
+        out["G"] = np.nan_to_num(g, nan=_BAD, posinf=_BAD, neginf=-_BAD)

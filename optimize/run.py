@@ -1,0 +1,106 @@
+"""A whole study: search every listed topology, then write report, front table, netlists and manifest."""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+import topologies
+
+from . import netlist, report
+from .export import front_table, staged_directory, versions, write_json
+from .problem import DesignProblem
+from .search import Progress, run_search
+from .study import Study, load_study
+from .techfile import file_hash, load
+
+
+class NoFeasibleDesign(Exception):
+    """The search found no design meeting the spec; the message says which constraints bind, by how much."""
+
+
+@dataclass
+class TopologyFront:
+    name: str
+    table: pd.DataFrame
+    evaluations: int
+    history: list
+
+
+def diagnose(problem: DesignProblem, X: np.ndarray) -> str:
+    metrics, _ = problem.metrics(X)
+    violations = np.column_stack([np.maximum(c.violation(metrics), 0) for c in problem.study.constraints])
+    best = int(np.argmin(violations.sum(axis=1)))
+    missed = []
+    for j, c in enumerate(problem.study.constraints):
+        if violations[best, j] > 0:
+            value = metrics[c.metric][best]
+            relation = "<" if c.sense == "min" else ">"
+            missed.append(f"{c.name} ({c.metric} {value:.4g} {relation} {c.bound:.4g} {c.unit})")
+    return (f"{problem.topology.name}: no design met the spec; the closest one misses "
+            + "; ".join(missed))
+
+
+def search_topology(study: Study, tech, name: str, progress: Progress | None) -> TopologyFront:
+    topology = topologies.available()[name]
+    problem = DesignProblem(topology, tech, study)
+    result = run_search(problem, study.population, study.generations, study.seed, progress)
+    if not result.feasible:
+        raise NoFeasibleDesign(diagnose(problem, result.X))
+    x = problem.decode(result.X)
+    metrics, build = topologies.evaluate(topology, x, tech, study.conditions)
+    names = [f"{topology.prefix}_{i + 1:03d}" for i in range(len(result.X))]
+    table = front_table(name, names, metrics, build, x, study.constraints)
+    return TopologyFront(name, table, result.evaluations, result.history)
+
+
+def write_netlists(folder: Path, study: Study, tech, front: TopologyFront) -> None:
+    topology = topologies.available()[front.name]
+    x = {c[2:]: front.table[c].to_numpy() for c in front.table if c.startswith("x_")}
+    _, build = topologies.evaluate(topology, x, tech, study.conditions)
+    folder.mkdir(exist_ok=True)
+    for i, design in enumerate(front.table["design"]):
+        (folder / f"{design}.sp").write_text(netlist.subckt(build, i, tech, design, topology.title))
+        (folder / f"{design}_tb.sp").write_text(
+            netlist.testbench(build, i, tech, study.conditions, design, f"{design}.sp"))
+
+
+def run_study(study_path: Path, out: Path, seed: int | None = None,
+              progress_factory: Callable[[str, int], Progress] | None = None) -> dict:
+    started = time.perf_counter()
+    study = load_study(study_path, topologies.available())
+    if seed is not None:
+        study = Study(**{**study.__dict__, "seed": seed})
+    tech = load(study.technology)
+    fronts = []
+    for name in study.topologies:
+        progress = progress_factory(name, study.generations) if progress_factory else None
+        fronts.append(search_topology(study, tech, name, progress))
+    table = pd.concat([f.table for f in fronts], ignore_index=True)
+    evaluations = sum(f.evaluations for f in fronts)
+    wall = time.perf_counter() - started
+    summary = {"technology": tech.name, "seed": study.seed, "population": study.population,
+               "generations": study.generations, "designs evaluated": evaluations,
+               "front designs": len(table), "wall time": f"{wall:.1f} s"}
+    with staged_directory(out) as stage:
+        table.to_csv(stage / "front.csv", index=False, float_format="%.9g")
+        (stage / "report.html").write_text(report.render(table, study, tech.name, summary), encoding="utf-8")
+        for front in fronts:
+            write_netlists(stage / "netlists", study, tech, front)
+        write_json(stage / "manifest.json", {
+            "tool": "ampfront", "versions": versions(), "seed": study.seed,
+            "study": {"file": str(study.path), "sha256": study.digest, "title": study.title},
+            "technology": {"name": tech.name, "file": str(study.technology),
+                           "sha256": file_hash(study.technology)},
+            "topologies": list(study.topologies), "objectives": list(study.objectives),
+            "population": study.population, "generations": study.generations,
+            "evaluations": evaluations, "wall_time_s": round(time.perf_counter() - started, 3),
+            "front_designs": len(table),
+            "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+        })
+    return summary

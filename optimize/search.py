@@ -1,0 +1,84 @@
+"""The multi-objective search: NSGA-II up to three objectives, NSGA-III for four and five."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+from pymoo.algorithms.moo.nsga2 import NSGA2
+from pymoo.algorithms.moo.nsga3 import NSGA3
+from pymoo.core.callback import Callback
+from pymoo.core.problem import Problem
+from pymoo.indicators.hv import HV
+from pymoo.optimize import minimize
+from pymoo.util.ref_dirs import get_reference_directions
+
+# Das-Dennis partitions giving 84 (4 objectives) and 70 (5 objectives) reference directions.
+_PARTITIONS = {4: 6, 5: 4}
+
+Progress = Callable[[int, int, float], None]  # generation, feasible designs, hypervolume
+
+
+def algorithm_for(n_obj: int, population: int):
+    if n_obj <= 3:
+        return NSGA2(pop_size=population)
+    ref_dirs = get_reference_directions("das-dennis", n_obj, n_partitions=_PARTITIONS[n_obj])
+    return NSGA3(ref_dirs=ref_dirs, pop_size=max(population, len(ref_dirs)))
+
+
+class _Tracker(Callback):
+    """Reports each generation: feasible designs and hypervolume of the feasible front, normalized by the
+    first feasible generation's extent so the number is comparable from one generation to the next."""
+
+    def __init__(self, report: Progress | None):
+        super().__init__()
+        self.report = report
+        self.low = self.span = None
+        self.history: list[tuple[int, int, float]] = []
+
+    def notify(self, algorithm):
+        pop = algorithm.pop
+        feasible = pop.get("feasible").ravel()
+        hv = 0.0
+        if feasible.any():
+            f = algorithm.opt.get("F")[algorithm.opt.get("feasible").ravel()]
+            if self.low is None and len(f):
+                # Floor of 0.1 (dB, decade or degree) so one lone feasible design does not blow the scale up.
+                self.low = pop.get("F")[feasible].min(axis=0)
+                self.span = np.maximum(pop.get("F")[feasible].max(axis=0) - self.low, 0.1)
+            if self.low is not None and len(f):
+                hv = float(HV(ref_point=np.full(f.shape[1], 1.1))((f - self.low) / self.span))
+        entry = (algorithm.n_gen, int(feasible.sum()), hv)
+        self.history.append(entry)
+        if self.report:
+            self.report(*entry)
+
+
+@dataclass
+class SearchResult:
+    X: np.ndarray          # front designs in the problem's variable space
+    F: np.ndarray
+    feasible: bool         # False: no design met every constraint; X holds the least-violating ones
+    history: list[tuple[int, int, float]]
+    evaluations: int
+
+
+def run_search(problem: Problem, population: int, generations: int, seed: int,
+               progress: Progress | None = None) -> SearchResult:
+    tracker = _Tracker(progress)
+    res = minimize(problem, algorithm_for(problem.n_obj, population), ("n_gen", generations),
+                   seed=seed, callback=tracker, verbose=False)
+    opt = res.opt
+    feasible = opt.get("feasible").ravel()
+    X, F = opt.get("X"), opt.get("F")
+    ok = bool(feasible.any())
+    if ok:
+        X, F = X[feasible], F[feasible]
+    # A stable order (by the first objective, then the rest) gives stable design names run to run.
+    order = np.lexsort(F.T[::-1])
+    X, F = X[order], F[order]
+    _, unique = np.unique(np.round(X, 12), axis=0, return_index=True)
+    keep = np.sort(unique)
+    return SearchResult(X=X[keep], F=F[keep], feasible=ok, history=tracker.history,
+                        evaluations=int(res.algorithm.evaluator.n_eval))
