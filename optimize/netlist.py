@@ -72,6 +72,7 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         f"echo {tag} gain_db $&gain_db",
         f"echo {tag} gbw_hz $&gbw_hz",
         f"echo {tag} phase_margin_deg $&phase_margin",
+        "quit 0",
         ".endc",
         ".end",
         "",

@@ -39,10 +39,10 @@ class _Tracker(Callback):
 
     def notify(self, algorithm):
         pop = algorithm.pop
-        feasible = pop.get("feasible").ravel()
+        feasible = pop.get("CV").ravel() <= 0
         hv = 0.0
         if feasible.any():
-            f = algorithm.opt.get("F")[algorithm.opt.get("feasible").ravel()]
+            f = algorithm.opt.get("F")[algorithm.opt.get("CV").ravel() <= 0]
             if self.low is None and len(f):
                 # Floor of 0.1 (dB, decade or degree) so one lone feasible design does not blow the scale up.
                 self.low = pop.get("F")[feasible].min(axis=0)
@@ -70,7 +70,7 @@ def run_search(problem: Problem, population: int, generations: int, seed: int,
     res = minimize(problem, algorithm_for(problem.n_obj, population), ("n_gen", generations),
                    seed=seed, callback=tracker, verbose=False)
     opt = res.opt
-    feasible = opt.get("feasible").ravel()
+    feasible = opt.get("CV").ravel() <= 0
     X, F = opt.get("X"), opt.get("F")
     ok = bool(feasible.any())
     if ok:

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .insight import gbw_dominant_pole
 from .base import Build, Conditions, Device, Element, Variable, gm_id_variable, length_variable, snap_length
 from .process.base import Technology, diode_vgs
 
@@ -102,6 +103,7 @@ class TwoStageMiller:
             "cm_low_v": op["tail_source"].op.vdsat + vgs1,
             "cm_high_v": vdd - vsg3 + op["input_pair_a"].op.vth,
             "offset_sys_v": vgs2 - vgs1,
+            "gbw_hand_hz": gbw_dominant_pole(op["input_pair_b"].op.gm, cc),
         }
         metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
         return Build(devices, elements, i_ref + i5 + i_sink, metrics)

@@ -1,0 +1,58 @@
+"""Malformed studies: one clear line naming file and key, exit status 2, no traceback, no output folder."""
+
+import subprocess
+import sys
+import textwrap
+
+import pytest
+
+GOOD_SPEC = """
+[spec]
+supply = "1.8 V"
+load_capacitance = "2 pF"
+min_gain = "60 dB"
+"""
+
+CASES = {
+    "unknown_key": (GOOD_SPEC + 'min_gian = "3 dB"\n', "spec.min_gian"),
+    "missing_supply": ('[spec]\nload_capacitance = "2 pF"\n', "spec.supply"),
+    "wrong_unit": (GOOD_SPEC.replace('"2 pF"', '"2 pV"'), "spec.load_capacitance"),
+    "missing_unit": (GOOD_SPEC.replace('"1.8 V"', '"1.8"'), "spec.supply"),
+    "number_not_string": (GOOD_SPEC.replace('"1.8 V"', "1.8"), "spec.supply"),
+    "negative_value": (GOOD_SPEC.replace('"2 pF"', '"-2 pF"'), "spec.load_capacitance"),
+    "zero_value": (GOOD_SPEC.replace('"1.8 V"', '"0 V"'), "spec.supply"),
+    "cm_range_reversed": (GOOD_SPEC + 'input_cm = ["1.2 V", "0.6 V"]\n', "spec.input_cm"),
+    "cm_above_supply": (GOOD_SPEC + 'input_cm = "2.5 V"\n', "spec.input_cm"),
+    "swing_above_supply": (GOOD_SPEC + 'min_output_swing = "2 V"\n', "spec.min_output_swing"),
+    "unknown_objective": ('objectives = ["power", "speed"]\n' + GOOD_SPEC, "objectives"),
+    "one_objective": ('objectives = ["power"]\n' + GOOD_SPEC, "objectives"),
+    "unknown_topology": ('topologies = ["three_stage"]\n' + GOOD_SPEC, "topologies"),
+    "missing_technology": ('technology = "nosuchprocess"\n' + GOOD_SPEC, "technology"),
+    "not_toml": ("this is [not toml\n", "(file)"),
+    "no_spec": ('title = "x"\n', "spec"),
+    "bad_population": (GOOD_SPEC + "[search]\npopulation = -5\n", "search.population"),
+    "unknown_search_key": (GOOD_SPEC + "[search]\ngens = 5\n", "search.gens"),
+}
+
+
+@pytest.mark.parametrize("case", sorted(CASES))
+def test_bad_study_gives_one_clear_line(case, tmp_path):
+    text, key = CASES[case]
+    study = tmp_path / f"{case}.toml"
+    study.write_text(textwrap.dedent(text))
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-m", "optimize", "run", str(study), "--out", str(out)],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 2, proc.stderr
+    lines = proc.stderr.strip().splitlines()
+    assert len(lines) == 1, proc.stderr
+    assert str(study) in lines[0] and key in lines[0] and "expected" in lines[0]
+    assert "Traceback" not in proc.stderr + proc.stdout
+    assert not out.exists()
+    assert not any(p.name.startswith(".out") for p in tmp_path.iterdir())
+
+
+def test_missing_study_file(tmp_path):
+    proc = subprocess.run([sys.executable, "-m", "optimize", "run", str(tmp_path / "nope.toml"), "--out",
+                           str(tmp_path / "out")], capture_output=True, text=True, timeout=60)
+    assert proc.returncode == 2 and "nope.toml" in proc.stderr and "Traceback" not in proc.stderr
