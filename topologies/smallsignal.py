@@ -96,6 +96,12 @@ class Circuit:
         np.multiply(-self.C[:, None, :n, n], w[:, :, None], out=rhs.imag)
         return solve_batched(a, rhs)[..., out]
 
+    def subset(self, rows: np.ndarray) -> "Circuit":
+        """The same circuit for the designs at `rows` only."""
+        part = Circuit(self.nodes, len(rows), self.drive, self.grounds[len(GROUND_NAMES):])
+        part.G, part.C = self.G[rows], self.C[rows]
+        return part
+
     def dc_gain(self, output: str) -> np.ndarray:
         n = len(self.nodes)
         return solve_batched(self.G[:, :n, :n], -self.G[:, :n, n])[:, self._index[output]]
@@ -109,8 +115,73 @@ class LoopMetrics:
     gain_margin: np.ndarray       # dB (inf where the phase never reaches -180 deg)
 
 
+class Modal:
+    """The population's responses in modal form, for evaluation at any frequency in O(n) per design.
+
+    With M = G^-1 C = V diag(lam) V^-1, (G + sC) x = b0 + s b1 becomes
+    x_out(s) = sum_i (r0_i + s r1_i) / (1 + s lam_i), poles at s = -1/lam_i (lam_i = 0: a pole at infinity,
+    which is how a singular C shows up). One real solve, one eigendecomposition and one complex solve per
+    design replace a complex solve per frequency.
+    """
+
+    def __init__(self, circuit: Circuit, output: str):
+        n = len(circuit.nodes)
+        g = circuit.G[:, :n, :n]
+        rhs = np.concatenate([circuit.C[:, :n, :n], -circuit.G[:, :n, n:n + 1], -circuit.C[:, :n, n:n + 1]],
+                             axis=2)
+        sol = np.linalg.solve(g, rhs)
+        self.lam, vectors = np.linalg.eig(sol[:, :, :n])
+        coef = np.linalg.solve(vectors, sol[:, :, n:].astype(complex))
+        row = vectors[:, circuit.nodes.index(output), :]
+        self.r0, self.r1 = row * coef[:, :, 0], row * coef[:, :, 1]
+        self.dc = sol[:, circuit.nodes.index(output), n]
+
+    def response(self, freqs) -> np.ndarray:
+        s = 2j * np.pi * np.broadcast_to(np.asarray(freqs, float), (len(self.lam), np.shape(freqs)[-1]))
+        s = s[:, :, None]
+        return ((self.r0[:, None, :] + s * self.r1[:, None, :]) / (1.0 + s * self.lam[:, None, :])).sum(axis=2)
+
+    def poles_hz(self) -> np.ndarray:
+        """Finite poles in Hz (complex; NaN where the mode sits at infinity), one row per design."""
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(self.lam != 0, -1.0 / (2 * np.pi * self.lam), np.nan)
+
+
+# Designs whose modal response differs from a direct solve by more than this at the unity-gain frequency
+# (near-defective eigenvectors) are recomputed by direct solves over the whole grid.
+MODAL_TOLERANCE = 1e-7
+
+
 def loop_metrics(circuit: Circuit, output: str, f_lo: float = 10.0, f_hi: float = 1e11,
-                 per_decade: int = 3, refine: int = 4) -> LoopMetrics:
+                 per_decade: int = 3, refine: int = 6) -> LoopMetrics:
+    """DC gain, GBW, phase and gain margins of the amplifier used as a unity-gain follower.
+
+    Fast path: the modal form, checked design by design against one direct solve at the unity-gain
+    frequency; designs that fail the check (or a population whose matrices LAPACK cannot factor) take
+    the direct path, a complex solve at every grid frequency.
+    """
+    args = (f_lo, f_hi, per_decade, refine)
+    try:
+        modal = Modal(circuit, output)
+    except np.linalg.LinAlgError:
+        modal = None
+    if modal is None:
+        return _crossings(circuit.dc_gain(output), lambda f: circuit.response(output, f), *args)
+    with np.errstate(all="ignore"):
+        result = _crossings(modal.dc.real, modal.response, *args)
+        probe = np.where(result.gbw > 0, result.gbw, f_lo)[:, None]
+        direct = circuit.response(output, probe)[:, 0]
+        fast = modal.response(probe)[:, 0]
+        bad = ~(np.abs(fast - direct) <= MODAL_TOLERANCE * np.abs(direct))
+    if bad.any():
+        sub = circuit.subset(np.flatnonzero(bad))
+        redo = _crossings(sub.dc_gain(output), lambda f: sub.response(output, f), *args)
+        for field in ("gain", "gbw", "phase_margin", "gain_margin"):
+            getattr(result, field)[bad] = getattr(redo, field)
+    return result
+
+
+def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine: int) -> LoopMetrics:
     """DC gain, GBW, phase and gain margins of the amplifier used as a unity-gain follower.
 
     A coarse log grid finds the crossings: at 3 points a decade one real pole turns the phase by at most
@@ -119,15 +190,15 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 10.0, f_hi: float 
     true value. `refine` regula-falsi steps on log|A| vs log f then pin the unity-gain frequency to well
     below 0.1 %.
     """
-    gain = circuit.dc_gain(output)
+    designs = len(gain)
     sign = np.where(gain < 0, -1.0, 1.0)
     grid = np.logspace(np.log10(f_lo), np.log10(f_hi), int(round(np.log10(f_hi / f_lo) * per_decade)) + 1)
-    h = circuit.response(output, grid) * sign[:, None]
+    h = response(grid) * sign[:, None]
     mag = np.log(np.abs(h))
     phase = np.unwrap(np.angle(h), axis=1)
     # Anchor the unwrapped phase at 0 at low frequency (it starts within a fraction of a turn of 0).
     phase -= 2 * np.pi * np.round(phase[:, :1] / (2 * np.pi))
-    rows = np.arange(circuit.designs)
+    rows = np.arange(designs)
     logf = np.log(grid)
 
     below = mag < 0.0
@@ -138,13 +209,13 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 10.0, f_hi: float 
     for _ in range(refine):
         t = np.clip(lo_m / np.where(lo_m - hi_m == 0, 1.0, lo_m - hi_m), 0.0, 1.0)
         mid_f = lo_f + t * (hi_f - lo_f)
-        mid_m = np.log(np.abs(circuit.response(output, np.exp(mid_f)[:, None])[:, 0]))
+        mid_m = np.log(np.abs(response(np.exp(mid_f)[:, None])[:, 0]))
         upper = mid_m > 0
         lo_f, lo_m = np.where(upper, mid_f, lo_f), np.where(upper, mid_m, lo_m)
         hi_f, hi_m = np.where(upper, hi_f, mid_f), np.where(upper, hi_m, mid_m)
     t = np.clip(lo_m / np.where(lo_m - hi_m == 0, 1.0, lo_m - hi_m), 0.0, 1.0)
     f_u = np.exp(lo_f + t * (hi_f - lo_f))
-    h_u = circuit.response(output, f_u[:, None])[:, 0] * sign
+    h_u = response(f_u[:, None])[:, 0] * sign
     ref = phase[rows, k - 1]
     phase_u = ref + np.angle(h_u * np.exp(-1j * ref))
     pm = np.where(has_ugf, 180.0 + np.degrees(phase_u), -np.inf)
@@ -156,6 +227,6 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 10.0, f_hi: float 
     p_lo, p_hi = phase[rows, j - 1], phase[rows, j]
     t = np.clip((p_lo + np.pi) / np.where(p_lo == p_hi, 1.0, p_lo - p_hi), 0.0, 1.0)
     f180 = np.exp(logf[j - 1] + t * (logf[j] - logf[j - 1]))
-    h180 = circuit.response(output, f180[:, None])[:, 0]
+    h180 = response(f180[:, None])[:, 0]
     gm_db = np.where(has_180, -20.0 * np.log10(np.abs(h180)), np.inf)
     return LoopMetrics(gain=gain, gbw=gbw, phase_margin=pm, gain_margin=gm_db)
