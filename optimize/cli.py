@@ -48,6 +48,32 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
               f"in {summary['wall time']} -> {out}/report.html", highlight=False)
 
 
+@app.command()
+def check(folder: Path = typer.Argument(..., help="a folder written by 'ampfront run'"),
+          designs: int = typer.Option(5, help="how many designs, spread along the front")) -> None:
+    """Simulate front designs' testbenches in ngspice and compare with the model's predictions."""
+    from .spice import SpiceError
+    from .units import eng
+    from .verify import check_folder
+
+    try:
+        table = check_folder(folder, designs)
+    except InputError as error:
+        _fail(str(error), 2)
+    except SpiceError as error:
+        _fail(str(error), 1)
+    typer.echo(f"{'design':<10} {'gain (model/spice)':>22} {'GBW (model/spice)':>24} "
+               f"{'PM (model/spice)':>18} {'I supply (model/spice)':>26}  ok")
+    for _, r in table.iterrows():
+        typer.echo(f"{r['design']:<10} {r['gain_db_model']:>9.2f} / {r['gain_db_spice']:<6.2f} dB "
+                   f"{eng(r['gbw_hz_model'], 'Hz'):>11} / {eng(r['gbw_hz_spice'], 'Hz'):<10} "
+                   f"{r['phase_margin_deg_model']:>6.1f} / {r['phase_margin_deg_spice']:<5.1f}° "
+                   f"{eng(r['supply_current_a_model'], 'A'):>11} / {eng(r['supply_current_a_spice'], 'A'):<12} "
+                   f"{'yes' if r['within_bounds'] else 'NO'}")
+    if not table["within_bounds"].all():
+        raise typer.Exit(1)
+
+
 @app.command("topologies")
 def list_topologies() -> None:
     """List the available topologies and their design variables."""

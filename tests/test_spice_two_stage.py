@@ -54,3 +54,14 @@ def test_subcircuit_contract(demo_run):
         assert lines[0] == f".subckt {path.stem} inp inn out vdd vss"
         assert lines[-1].startswith(".ends")
         assert not any(line.lower().startswith((".model", ".include", ".lib", ".control", "v")) for line in lines)
+
+
+@pytest.mark.spice
+def test_check_command_reports_agreement(demo_run):
+    from typer.testing import CliRunner
+
+    from optimize.cli import app
+
+    result = CliRunner().invoke(app, ["check", str(demo_run), "--designs", "3"])
+    assert result.exit_code == 0, result.output
+    assert result.output.count("yes") == 3
