@@ -1,0 +1,122 @@
+"""Building blocks shared by topologies: the nMOS bias branch and the mirror-loaded nMOS input pair.
+
+Each block is sized from gm/ID targets, then solved from its sized widths, so topologies compose them
+without repeating the physics.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .base import Device, Variable, gm_id_variable, length_variable, snap_length
+from .process.base import Technology, diode_vgs
+
+
+def pair_variables(tech: Technology) -> tuple[Variable, ...]:
+    """Design variables of a bias branch feeding a mirror-loaded input pair."""
+    return (
+        Variable("i_tail", 0.5e-6, 1e-3, "A", log=True, doc="input-pair tail current"),
+        Variable("bias_ratio", 1.0, 8.0, "1", doc="tail current / reference current"),
+        gm_id_variable("gmid_in", tech, "gm/ID of the input pair"),
+        length_variable("l_in", tech, "input pair length"),
+        gm_id_variable("gmid_load", tech, "gm/ID of the mirror load"),
+        length_variable("l_load", tech, "mirror load length"),
+        gm_id_variable("gmid_bias", tech, "gm/ID of the nMOS bias group (diode, tail, sink)"),
+        length_variable("l_bias", tech, "nMOS bias group length"),
+    )
+
+
+def device(tech: Technology, role, polarity, nodes, w, l, vgs, vds, vsb) -> Device:
+    return Device(role, polarity, nodes, w, l, vgs, vds, vsb, tech.operating_point(polarity, w, l, vgs, vds, vsb))
+
+
+@dataclass
+class BiasBranch:
+    """Reference current into an nMOS diode; its VGS biases every nMOS current source of the group."""
+
+    i_ref: np.ndarray
+    w_ref: np.ndarray
+    l: np.ndarray
+    vgs: np.ndarray
+
+    @classmethod
+    def sized(cls, tech: Technology, x) -> "BiasBranch":
+        i_ref = x["i_tail"] / x["bias_ratio"]
+        l_bias = snap_length(x["l_bias"], tech)
+        zero = np.zeros_like(i_ref)
+        w_ref, vgs = tech.size("n", x["gmid_bias"], l_bias, i_ref, zero + 0.6, zero)
+        w_ref, _ = tech.size("n", x["gmid_bias"], l_bias, i_ref, vgs, zero)
+        return cls(i_ref, w_ref, l_bias, diode_vgs(tech, "n", w_ref, l_bias, i_ref))
+
+    def source(self, tech: Technology, role: str, drain: str, i_target, vds) -> tuple[Device, np.ndarray]:
+        """An nMOS current source mirroring the branch at i_target, and the current it really carries."""
+        w = self.w_ref * i_target / self.i_ref
+        zero = np.zeros_like(w)
+        vds = vds + zero
+        dev = device(tech, role, "n", (drain, "nb", "vss", "vss"), w, self.l, self.vgs, vds, zero)
+        return dev, dev.op.id
+
+    def diode(self, tech: Technology) -> Device:
+        zero = np.zeros_like(self.w_ref)
+        return device(tech, "bias_diode", "n", ("nb", "nb", "vss", "vss"), self.w_ref, self.l, self.vgs,
+                      self.vgs, zero)
+
+
+@dataclass
+class MirrorPair:
+    """nMOS differential pair (gates inn/inp, drains mir/o1, common source `tail`) with a pMOS mirror load."""
+
+    w_in: np.ndarray
+    l_in: np.ndarray
+    w_load: np.ndarray
+    l_load: np.ndarray
+    vsg_load: np.ndarray        # the mirror's VSG as sized
+
+    @classmethod
+    def sized(cls, tech: Technology, x, vdd: float, vcm: float) -> "MirrorPair":
+        l_in, l_load = snap_length(x["l_in"], tech), snap_length(x["l_load"], tech)
+        half = x["i_tail"] / 2
+        zero = np.zeros_like(half)
+        w_load, vsg = tech.size("p", x["gmid_load"], l_load, half, zero + 0.6, zero)
+        w_load, vsg = tech.size("p", x["gmid_load"], l_load, half, vsg, zero)
+        vs = zero + vcm - 0.6
+        for _ in range(3):
+            w_in, vgs = tech.size("n", x["gmid_in"], l_in, half, vdd - vsg - vs, vs)
+            vs = vcm - vgs
+        return cls(w_in, l_in, w_load, l_load, vsg)
+
+    def solve(self, tech: Technology, bias: BiasBranch, i_tail_target, vdd: float, vcm: float, v_o1):
+        """DC operating point with node o1 held at v_o1 by whatever follows; returns devices and figures."""
+        zero = np.zeros_like(self.w_in)
+        vs, i1 = zero + vcm - 0.6, i_tail_target / 2
+        vsd_out = vdd - v_o1
+        for _ in range(4):
+            _, i5 = bias.source(tech, "tail_source", "tail", i_tail_target, np.maximum(vs, 1e-3))
+            vsg3 = diode_vgs(tech, "p", self.w_load, self.l_load, i1)
+            ratio = (tech.current("p", self.w_load, self.l_load, vsg3, vsd_out, zero)
+                     / tech.current("p", self.w_load, self.l_load, vsg3, vsg3, zero))
+            i1 = i5 / (1 + ratio)
+            vgs1 = tech.vgs_for_current("n", self.w_in, self.l_in, i1, vdd - vsg3 - vs, vs)
+            vs = vcm - vgs1
+        i2 = i5 - i1
+        vds1, vds2 = vdd - vsg3 - vs, v_o1 - vs
+        vgs2 = tech.vgs_for_current("n", self.w_in, self.l_in, i2, vds2, vs)
+        tail, _ = bias.source(tech, "tail_source", "tail", i_tail_target, vs)
+        devices = [
+            device(tech, "input_pair_a", "n", ("mir", "inn", "tail", "vss"), self.w_in, self.l_in, vgs1, vds1, vs),
+            device(tech, "input_pair_b", "n", ("o1", "inp", "tail", "vss"), self.w_in, self.l_in, vgs2, vds2, vs),
+            device(tech, "mirror_diode", "p", ("mir", "mir", "vdd", "vdd"), self.w_load, self.l_load, vsg3, vsg3,
+                   zero),
+            device(tech, "mirror_out", "p", ("o1", "mir", "vdd", "vdd"), self.w_load, self.l_load, vsg3,
+                   vsd_out, zero),
+            tail,
+        ]
+        figures = {
+            "i_tail": i5, "vsg_load": vsg3, "vgs_in": vgs1,
+            "cm_low_v": tail.op.vdsat + vgs1,
+            "cm_high_v": vdd - vsg3 + devices[0].op.vth,
+            "offset_sys_v": vgs2 - vgs1,
+        }
+        return devices, figures
