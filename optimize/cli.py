@@ -79,13 +79,15 @@ def list_topologies() -> None:
     """List the available topologies and their design variables."""
     import topologies
     from .techfile import load, shipped
+    from .units import eng
 
     tech = load(shipped()["generic180"])
     for name, topology in topologies.available().items():
         typer.echo(f"{name}  ({topology.title})")
         for v in topology.variables(tech):
             scale = "log" if v.log else "lin"
-            typer.echo(f"    {v.name:<12} {v.low:<10.4g} .. {v.high:<10.4g} {v.unit:<4} {scale}  {v.doc}")
+            unit = "" if v.unit == "1" else v.unit
+            typer.echo(f"    {v.name:<12} {eng(v.low, unit):>9} .. {eng(v.high, unit):<9} {scale}  {v.doc}")
 
 
 @app.command()

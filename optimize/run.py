@@ -14,7 +14,7 @@ import topologies
 
 from . import netlist, report
 from .export import front_table, staged_directory, versions, write_json
-from .problem import DesignProblem
+from .problem import DesignProblem, objective_matrix
 from .search import Progress, run_search
 from .study import Study, load_study
 from .techfile import file_hash, load
@@ -44,6 +44,17 @@ def diagnose(problem: DesignProblem, X: np.ndarray) -> str:
             missed.append(f"{c.name} ({c.metric} {value:.4g} {relation} {c.bound:.4g} {c.unit})")
     return (f"{problem.topology.name}: no design met the spec; the closest one misses "
             + "; ".join(missed))
+
+
+def merged_front(table: pd.DataFrame, objectives) -> np.ndarray:
+    """True for designs no design of any topology dominates: who wins where."""
+    from pymoo.util.nds.non_dominated_sorting import NonDominatedSorting
+
+    metrics = {column: table[column].to_numpy() for column in table.columns}
+    F = objective_matrix(metrics, objectives)
+    mask = np.zeros(len(table), bool)
+    mask[NonDominatedSorting().do(F, only_non_dominated_front=True)] = True
+    return mask
 
 
 def search_topology(study: Study, tech, name: str, progress: Progress | None) -> TopologyFront:
@@ -82,6 +93,7 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
         progress = progress_factory(name, study.generations) if progress_factory else None
         fronts.append(search_topology(study, tech, name, progress))
     table = pd.concat([f.table for f in fronts], ignore_index=True)
+    table.insert(2, "on_merged_front", merged_front(table, study.objectives))
     evaluations = sum(f.evaluations for f in fronts)
     wall = time.perf_counter() - started
     summary = {"technology": tech.name, "seed": study.seed, "population": study.population,

@@ -28,6 +28,10 @@ def test_shapes_finiteness_and_determinism(name):
     for key in ("gain_db", "power_w", "area_um2", "slew_v_per_us", "sat_min_v"):
         assert np.isfinite(metrics[key]).all(), key
     assert (metrics["power_w"] > 0).all() and (metrics["area_um2"] > 0).all()
+    # Non-inverting from inp to out, or the testbench's DC feedback would latch instead of following.
+    from topologies.evaluate import small_signal
+
+    assert (small_signal(build, DEMO_CONDITIONS).dc_gain("out") > -1e-9).all()
     assert len({d.role for d in build.devices}) == len(build.devices)
     again, _ = evaluate(topology, x, tech, DEMO_CONDITIONS)
     for key in metrics:

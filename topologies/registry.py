@@ -5,10 +5,11 @@ from __future__ import annotations
 from importlib.metadata import entry_points
 
 from .base import Topology
+from .simple_ota import SimpleOTA
 from .two_stage import TwoStageMiller
 
 ENTRY_POINT_GROUP = "ampfront.topologies"
-_BUILTIN: tuple[type, ...] = (TwoStageMiller,)
+_BUILTIN: tuple[type, ...] = (SimpleOTA, TwoStageMiller)
 
 
 class PluginError(Exception):

@@ -87,8 +87,14 @@ class MirrorPair:
             vs = vcm - vgs
         return cls(w_in, l_in, w_load, l_load, vsg)
 
-    def solve(self, tech: Technology, bias: BiasBranch, i_tail_target, vdd: float, vcm: float, v_o1):
-        """DC operating point with node o1 held at v_o1 by whatever follows; returns devices and figures."""
+    def solve(self, tech: Technology, bias: BiasBranch, i_tail_target, vdd: float, vcm: float, v_o1,
+              inverting_after: bool):
+        """DC operating point with node o1 held at v_o1 by whatever follows; returns devices and figures.
+
+        `inverting_after`: an inverting stage follows o1, so inp drives the o1 side of the pair; otherwise
+        inp drives the diode side. Either way the amplifier is non-inverting from inp to out.
+        """
+        gate_a, gate_b = ("inn", "inp") if inverting_after else ("inp", "inn")
         zero = np.zeros_like(self.w_in)
         vs, i1 = zero + vcm - 0.6, i_tail_target / 2
         vsd_out = vdd - v_o1
@@ -105,8 +111,8 @@ class MirrorPair:
         vgs2 = tech.vgs_for_current("n", self.w_in, self.l_in, i2, vds2, vs)
         tail, _ = bias.source(tech, "tail_source", "tail", i_tail_target, vs)
         devices = [
-            device(tech, "input_pair_a", "n", ("mir", "inn", "tail", "vss"), self.w_in, self.l_in, vgs1, vds1, vs),
-            device(tech, "input_pair_b", "n", ("o1", "inp", "tail", "vss"), self.w_in, self.l_in, vgs2, vds2, vs),
+            device(tech, "input_pair_a", "n", ("mir", gate_a, "tail", "vss"), self.w_in, self.l_in, vgs1, vds1, vs),
+            device(tech, "input_pair_b", "n", ("o1", gate_b, "tail", "vss"), self.w_in, self.l_in, vgs2, vds2, vs),
             device(tech, "mirror_diode", "p", ("mir", "mir", "vdd", "vdd"), self.w_load, self.l_load, vsg3, vsg3,
                    zero),
             device(tech, "mirror_out", "p", ("o1", "mir", "vdd", "vdd"), self.w_load, self.l_load, vsg3,

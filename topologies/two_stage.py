@@ -41,7 +41,7 @@ class TwoStageMiller:
 
         sink, i_sink = bias.source(tech, "output_sink", "out", x["i_out"], vcm)
         vsg6 = tech.vgs_for_current("p", w_drv, l_drv, i_sink, vdd - vcm, zero)
-        first, fig = pair.solve(tech, bias, x["i_tail"], vdd, vcm, vdd - vsg6)
+        first, fig = pair.solve(tech, bias, x["i_tail"], vdd, vcm, vdd - vsg6, inverting_after=True)
         driver = device(tech, "output_driver", "p", ("out", "o1", "vdd", "vdd"), w_drv, l_drv, vsg6,
                         vdd - vcm + zero, zero)
         devices = first + [driver, sink, bias.diode(tech)]

@@ -1,0 +1,46 @@
+"""Five-transistor OTA: nMOS differential pair, pMOS mirror load, nMOS tail source, plus the nMOS diode
+bias branch. The load capacitance compensates it: one high-impedance node, the output."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .base import Build, Conditions, Element, Variable
+from .process.base import Technology
+from .stages import BiasBranch, MirrorPair, pair_variables
+
+
+class SimpleOTA:
+    name = "simple_ota"
+    title = "Five-transistor OTA"
+    prefix = "ota"
+
+    def variables(self, tech: Technology) -> tuple[Variable, ...]:
+        return pair_variables(tech)
+
+    def build(self, x, tech: Technology, cond: Conditions) -> Build:
+        vdd, vcm = cond.vdd, cond.v_cm
+        bias = BiasBranch.sized(tech, x)
+        pair = MirrorPair.sized(tech, x, vdd, vcm)
+        # The output is node o1; at DC the follower loop holds it at the common-mode level.
+        devices, fig = pair.solve(tech, bias, x["i_tail"], vdd, vcm, np.full_like(x["i_tail"], vcm),
+                                 inverting_after=False)
+        devices = [_rename_output(d) for d in devices] + [bias.diode(tech)]
+        out_pair, load_out = devices[1], devices[3]
+        metrics = {
+            "slew_v_per_us": fig["i_tail"] / cond.c_load * 1e-6,
+            "out_high_v": vdd - load_out.op.vdsat,
+            # Lowest output keeping the output-side input device saturated, with the tail at its bias.
+            "out_low_v": (vcm - fig["vgs_in"]) + out_pair.op.vdsat,
+            "cm_low_v": fig["cm_low_v"],
+            "cm_high_v": fig["cm_high_v"],
+            "offset_sys_v": fig["offset_sys_v"],
+        }
+        metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
+        elements = [Element("I", "bias_reference", "vdd", "nb", bias.i_ref)]
+        return Build(devices, elements, bias.i_ref + fig["i_tail"], metrics)
+
+
+def _rename_output(d):
+    d.nodes = tuple("out" if n == "o1" else n for n in d.nodes)
+    return d
