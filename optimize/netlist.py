@@ -72,6 +72,12 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         f"echo {tag} gain_db $&gain_db",
         f"echo {tag} gbw_hz $&gbw_hz",
         f"echo {tag} phase_margin_deg $&phase_margin",
+        # Input-referred noise density at 100 Hz (index 5 of 10, 15.8, 25, 39.8, 63, 100 Hz): with the DC
+        # loop closed only through the inductor this is the open-loop amplifier's own noise.
+        "noise v(out) vin dec 5 10 100",
+        "setplot noise1",
+        "let noise_nv = inoise_spectrum[5] * 1e9",  # ngspice reports V/sqrt(Hz)
+        f"echo {tag} noise_nv_rthz $&noise_nv",
         "quit 0",
         ".endc",
         ".end",

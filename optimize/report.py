@@ -60,6 +60,13 @@ def front_figure(df: pd.DataFrame, study: Study) -> go.Figure:
             fig.add_trace(go.Splom(dimensions=dims, name=topology, text=hover, hoverinfo="text",
                                    diagonal_visible=False, showupperhalf=False,
                                    marker=dict(color=color, size=6, line=dict(width=0.3, color="white"))))
+    if len(names) > 2:
+        # Splom axes are numbered by dimension; quantities spanning decades read best on log axes.
+        for k, name in enumerate(names, start=1):
+            if _axis(name)[2]:
+                suffix = "" if k == 1 else str(k)
+                fig.layout[f"xaxis{suffix}"] = dict(type="log")
+                fig.layout[f"yaxis{suffix}"] = dict(type="log")
     fig.update_layout(height=560 if len(names) == 2 else 220 * len(names), template="plotly_white",
                       margin=dict(l=70, r=20, t=30, b=60), legend_title_text="Topology", hovermode="closest")
     return fig

@@ -75,6 +75,9 @@ def write_netlists(folder: Path, study: Study, tech, front: TopologyFront) -> No
     x = {c[2:]: front.table[c].to_numpy() for c in front.table if c.startswith("x_")}
     _, build = topologies.evaluate(topology, x, tech, study.conditions)
     folder.mkdir(exist_ok=True)
+    if tech.spice_init:
+        # ngspice reads .spiceinit from the folder it starts in: the testbenches run as they are from here.
+        (folder / ".spiceinit").write_text("\n".join(tech.spice_init) + "\n")
     for i, design in enumerate(front.table["design"]):
         (folder / f"{design}.sp").write_text(netlist.subckt(build, i, tech, design, topology.title))
         (folder / f"{design}_tb.sp").write_text(
@@ -87,7 +90,7 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     study = load_study(study_path, topologies.available())
     if seed is not None:
         study = Study(**{**study.__dict__, "seed": seed})
-    tech = load(study.technology)
+    tech = load(study.technology, study.corner)
     fronts = []
     for name in study.topologies:
         progress = progress_factory(name, study.generations) if progress_factory else None
@@ -107,8 +110,8 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
         write_json(stage / "manifest.json", {
             "tool": "ampfront", "versions": versions(), "seed": study.seed,
             "study": {"file": str(study.path), "sha256": study.digest, "title": study.title},
-            "technology": {"name": tech.name, "file": str(study.technology),
-                           "sha256": file_hash(study.technology)},
+            "technology": {"name": tech.name, "file": str(study.technology), "corner": study.corner,
+                           "sha256": file_hash(study.technology, study.corner)},
             "topologies": list(study.topologies), "objectives": list(study.objectives),
             "population": study.population, "generations": study.generations,
             "evaluations": evaluations, "wall_time_s": round(time.perf_counter() - started, 3),

@@ -15,7 +15,9 @@ from topologies.base import Conditions
 
 from .errors import InputError
 from .schema import Field, check_keys, read_table, read_toml, suggest
-from .techfile import resolve
+from .techfile import corners, resolve
+
+DEFAULT_TECHNOLOGY = "sky130"   # its default corner: tt, 27 degC
 
 # Objectives: the metric behind each, its direction, and the transform the search works in (log for
 # quantities that span decades, so the front is spread evenly over them).
@@ -40,10 +42,12 @@ SPEC_SCHEMA = {
     "input_cm": Field("V"),          # or a two-element list, see _input_cm
     "max_power": Field("W"),
     "max_area": Field("m^2"),
+    "max_offset_sigma": Field("V"),
+    "max_noise_density": Field("V/sqrt(Hz)"),
     "saturation_margin": Field("V"),
 }
 SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed": Field("int", positive=False)}
-TOP_KEYS = {"title", "topologies", "objectives", "technology", "spec", "search"}
+TOP_KEYS = {"title", "topologies", "objectives", "technology", "corner", "spec", "search"}
 
 # Saturation headroom kept on every device unless the study says otherwise (common practice: 50-100 mV).
 DEFAULT_SATURATION_MARGIN = 0.05
@@ -80,6 +84,7 @@ class Study:
     objectives: tuple[str, ...]
     topologies: tuple[str, ...]
     technology: Path
+    corner: str | None
     population: int
     generations: int
     seed: int
@@ -141,10 +146,16 @@ def load_study(path: Path, topology_names) -> Study:
                              f"names from {', '.join(topology_names)}{suggest(str(name), topology_names)}", name)
 
     search = read_table(source, "search.", raw.get("search", {}), SEARCH_SCHEMA)
-    technology = raw.get("technology", "generic180")
+    technology = raw.get("technology", DEFAULT_TECHNOLOGY)
     if not isinstance(technology, str):
         raise InputError(source, "technology", "a shipped technology name or a .toml file path", technology)
     tech_path = resolve(technology, path.parent, source)
+    corner = raw.get("corner")
+    if corner is not None:
+        shipped_corners = corners(tech_path)
+        if corner not in shipped_corners:
+            raise InputError(source, "corner", f"a corner the technology ships: {', '.join(shipped_corners) or 'none'}"
+                             f"{suggest(str(corner), shipped_corners)}", corner)
 
     constraints = _constraints(spec, cm_range)
     conditions = Conditions(vdd=supply, c_load=spec["load_capacitance"],
@@ -152,7 +163,7 @@ def load_study(path: Path, topology_names) -> Study:
     return Study(
         path=path, title=str(raw.get("title", path.stem)), spec=spec, conditions=conditions,
         cm_range=cm_range, constraints=constraints, objectives=tuple(objectives),
-        topologies=tuple(topologies), technology=tech_path,
+        topologies=tuple(topologies), technology=tech_path, corner=corner,
         population=search.get("population", 100), generations=search.get("generations", 60),
         seed=search.get("seed", 1), digest=hashlib.sha256(path.read_bytes()).hexdigest(),
     )
@@ -165,6 +176,8 @@ def _constraints(spec: dict, cm_range: tuple[float, float]) -> tuple[Constraint,
         ("min_phase_margin", "phase_margin_deg", "min", "deg"), ("min_gain_margin", "gain_margin_db", "min", "dB"),
         ("min_slew_rate", "slew_v_per_us", "min", "V/us"), ("min_output_swing", "swing_v", "min", "V"),
         ("max_power", "power_w", "max", "W"), ("max_area", "area_um2", "max", "um^2"),
+        ("max_offset_sigma", "offset_sigma_v", "max", "V"),
+        ("max_noise_density", "noise_thermal_v_rthz", "max", "V/sqrt(Hz)"),
     ]
     out = []
     for key, metric, sense, unit in table:

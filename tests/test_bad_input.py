@@ -28,6 +28,8 @@ CASES = {
     "one_objective": ('objectives = ["power"]\n' + GOOD_SPEC, "objectives"),
     "unknown_topology": ('topologies = ["three_stage"]\n' + GOOD_SPEC, "topologies"),
     "missing_technology": ('technology = "nosuchprocess"\n' + GOOD_SPEC, "technology"),
+    "corner_not_shipped": ('technology = "sky130"\ncorner = "sf"\n' + GOOD_SPEC, "corner"),
+    "corner_on_square_law": ('technology = "generic180"\ncorner = "ss"\n' + GOOD_SPEC, "corner"),
     "not_toml": ("this is [not toml\n", "(file)"),
     "no_spec": ('title = "x"\n', "spec"),
     "bad_population": (GOOD_SPEC + "[search]\npopulation = -5\n", "search.population"),
@@ -56,3 +58,28 @@ def test_missing_study_file(tmp_path):
     proc = subprocess.run([sys.executable, "-m", "optimize", "run", str(tmp_path / "nope.toml"), "--out",
                            str(tmp_path / "out")], capture_output=True, text=True, timeout=60)
     assert proc.returncode == 2 and "nope.toml" in proc.stderr and "Traceback" not in proc.stderr
+
+
+@pytest.mark.parametrize("args, key", [
+    (["--corner", "xx"], "corner"),
+    (["--library", "acme"], "--library"),
+    (["--lengths", "0.15,abc"], "--lengths"),
+    (["--lengths", "0.15,-1"], "--lengths"),
+])
+def test_bad_characterize_options(args, key, tmp_path):
+    proc = subprocess.run([sys.executable, "-m", "optimize", "characterize", "--out", str(tmp_path / "t"), *args],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 2, proc.stderr
+    assert key in proc.stderr and "Traceback" not in proc.stderr
+    assert not (tmp_path / "t").exists()
+
+
+def test_characterize_names_a_missing_device(tmp_path):
+    """A device the library does not define: ngspice's complaint becomes one clear line."""
+    proc = subprocess.run([sys.executable, "-m", "optimize", "characterize", "--out", str(tmp_path / "t"),
+                           "--nmos", "sky130_fd_pr__nfet_99v9", "--lengths", "0.5"],
+                          capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 1, proc.stderr
+    assert "sky130_fd_pr__nfet_99v9" in proc.stderr and "device name not in the library" in proc.stderr
+    assert "Traceback" not in proc.stderr
+    assert not list((tmp_path).glob("t/*.npz"))

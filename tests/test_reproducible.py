@@ -27,7 +27,7 @@ def test_outputs_and_manifest(demo_run):
     for key in ("versions", "seed", "study", "technology", "evaluations", "wall_time_s"):
         assert key in manifest
     assert len(manifest["study"]["sha256"]) == 64 and len(manifest["technology"]["sha256"]) == 64
-    assert manifest["technology"]["name"] == "generic180"
+    assert manifest["technology"]["name"] == "sky130-tt"  # the default technology
     assert manifest["evaluations"] >= 100
     html = (demo_run / "report.html").read_text()
     assert "Pre-layout estimates" in html and "<script" in html

@@ -1,7 +1,7 @@
 """Exported two-stage netlists simulated by an outside reference.
 
 Reference: ngspice (Debian package `ngspice`), level-1 MOSFET, on the netlists ampfront writes for the demo
-study. Bounds from the issue: DC gain 0.5 dB, GBW 5 %, phase margin 3 deg, supply current 2 %.
+study run on the square-law technology generic180. Bounds from the issue: DC gain 0.5 dB, GBW 5 %, phase margin 3 deg, supply current 2 %.
 """
 
 import numpy as np
@@ -12,7 +12,8 @@ from optimize.spice import simulate
 
 
 @pytest.mark.spice
-def test_front_designs_match_ngspice(demo_run):
+def test_front_designs_match_ngspice(square_law_run):
+    demo_run = square_law_run
     front = pd.read_csv(demo_run / "front.csv")
     # Five designs spread over the front: cheapest, fastest, highest gain and two in between.
     picks = sorted({int(front["power_w"].idxmin()), int(front["gbw_hz"].idxmax()), int(front["gain_db"].idxmax()),
@@ -29,7 +30,8 @@ def test_front_designs_match_ngspice(demo_run):
 
 
 @pytest.mark.spice
-def test_testbench_runs_from_any_folder(demo_run, tmp_path):
+def test_testbench_runs_from_any_folder(square_law_run, tmp_path):
+    demo_run = square_law_run
     """The testbench finds its subcircuit beside it, wherever ngspice is started from."""
     import shutil
     import subprocess
@@ -57,7 +59,8 @@ def test_subcircuit_contract(demo_run):
 
 
 @pytest.mark.spice
-def test_check_command_reports_agreement(demo_run):
+def test_check_command_reports_agreement(square_law_run):
+    demo_run = square_law_run
     from typer.testing import CliRunner
 
     from optimize.cli import app

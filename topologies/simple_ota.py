@@ -35,6 +35,8 @@ class SimpleOTA:
             "cm_low_v": fig["cm_low_v"],
             "cm_high_v": fig["cm_high_v"],
             "offset_sys_v": fig["offset_sys_v"],
+            "offset_sigma_v": fig["offset_sigma_v"],
+            "noise_thermal_v_rthz": fig["noise_thermal_v_rthz"],
         }
         metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
         elements = [Element("I", "bias_reference", "vdd", "nb", bias.i_ref)]

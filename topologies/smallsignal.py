@@ -73,11 +73,31 @@ class Circuit:
         self.vccs(d, s, g, s, op.gm)
         self.vccs(d, s, b, s, op.gmb)
         self.conductance(d, s, op.gds)
-        self.capacitor(g, s, op.cgs)
-        self.capacitor(g, d, op.cgd)
-        self.capacitor(g, b, op.cgb)
+        if op.partials is None:
+            self.capacitor(g, s, op.cgs)
+            self.capacitor(g, d, op.cgd)
+            self.capacitor(g, b, op.cgb)
+        else:
+            self._charge_matrix({"g": g, "d": d, "s": s, "b": b}, op.partials)
         self.capacitor(d, b, op.cdb)
         self.capacitor(s, b, op.csb)
+
+    def _charge_matrix(self, nodes: dict[str, str], c: dict[str, np.ndarray]) -> None:
+        """Stamp dQi/dVj for all four terminals; the bulk row and column follow from charge conservation
+        (columns sum to zero) and from invariance to a common shift of all terminals (rows sum to zero)."""
+        full = dict(c)
+        for i in "gds":
+            full[i + "b"] = -(c[i + "g"] + c[i + "d"] + c[i + "s"])
+        for j in "gdsb":
+            full["b" + j] = -(full["g" + j] + full["d" + j] + full["s" + j])
+        for i in "gdsb":
+            row = self._idx(nodes[i])
+            if row is None:
+                continue
+            for j in "gdsb":
+                col = self._idx(nodes[j])
+                if col is not None:
+                    self.C[:, row, col] += full[i + j]
 
     def response(self, output: str, freqs: np.ndarray) -> np.ndarray:
         """v(output)/v(drive) for every design (rows) at every frequency (columns) in Hz.
@@ -99,7 +119,7 @@ class Circuit:
     def subset(self, rows: np.ndarray) -> "Circuit":
         """The same circuit for the designs at `rows` only."""
         part = Circuit(self.nodes, len(rows), self.drive, self.grounds[len(GROUND_NAMES):])
-        part.G, part.C = self.G[rows], self.C[rows]
+        part.G, part.C = self.G[rows].copy(), self.C[rows].copy()
         return part
 
     def dc_gain(self, output: str) -> np.ndarray:
@@ -152,7 +172,7 @@ class Modal:
 MODAL_TOLERANCE = 1e-7
 
 
-def loop_metrics(circuit: Circuit, output: str, f_lo: float = 10.0, f_hi: float = 1e11,
+def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float = 1e11,
                  per_decade: int = 3, refine: int = 6) -> LoopMetrics:
     """DC gain, GBW, phase and gain margins of the amplifier used as a unity-gain follower.
 
@@ -161,12 +181,21 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 10.0, f_hi: float 
     the direct path, a complex solve at every grid frequency.
     """
     args = (f_lo, f_hi, per_decade, refine)
+    # Designs with non-finite elements (outside a table, dead devices) get a harmless stand-in circuit so
+    # the batched LAPACK calls run, and NaN results.
+    broken = ~(np.isfinite(circuit.G).all(axis=(1, 2)) & np.isfinite(circuit.C).all(axis=(1, 2)))
+    if broken.any():
+        circuit = circuit.subset(np.arange(circuit.designs))
+        size = circuit.G.shape[1]
+        circuit.G[broken] = np.eye(size)
+        circuit.C[broken] = 0.0
     try:
         modal = Modal(circuit, output)
     except np.linalg.LinAlgError:
         modal = None
     if modal is None:
-        return _crossings(circuit.dc_gain(output), lambda f: circuit.response(output, f), *args)
+        result = _crossings(circuit.dc_gain(output), lambda f: circuit.response(output, f), *args)
+        return _blank(result, broken)
     with np.errstate(all="ignore"):
         result = _crossings(modal.dc.real, modal.response, *args)
         probe = np.where(result.gbw > 0, result.gbw, f_lo)[:, None]
@@ -178,6 +207,12 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 10.0, f_hi: float 
         redo = _crossings(sub.dc_gain(output), lambda f: sub.response(output, f), *args)
         for field in ("gain", "gbw", "phase_margin", "gain_margin"):
             getattr(result, field)[bad] = getattr(redo, field)
+    return _blank(result, broken)
+
+
+def _blank(result: LoopMetrics, rows: np.ndarray) -> LoopMetrics:
+    for field in ("gain", "gbw", "phase_margin", "gain_margin"):
+        getattr(result, field)[rows] = np.nan
     return result
 
 
@@ -185,8 +220,8 @@ def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine
     """DC gain, GBW, phase and gain margins of the amplifier used as a unity-gain follower.
 
     A coarse log grid finds the crossings: at 3 points a decade one real pole turns the phase by at most
-    21.4 deg a step, so the unwrap follows up to eight coincident poles. The grid starts at 10 Hz, below
-    any non-dominant pole of a practical amplifier, so the phase there is within half a turn of its
+    21.4 deg a step, so the unwrap follows up to eight coincident poles. The grid starts at 1 mHz, below
+    the second pole of any amplifier worth reporting, so the phase there is within half a turn of its
     true value. `refine` regula-falsi steps on log|A| vs log f then pin the unity-gain frequency to well
     below 0.1 %.
     """

@@ -28,6 +28,26 @@ def pair_variables(tech: Technology) -> tuple[Variable, ...]:
     )
 
 
+# Channel thermal-noise factor of a long-channel device in saturation (common practice: 2/3).
+GAMMA_THERMAL = 2.0 / 3.0
+BOLTZMANN = 1.380649e-23
+
+
+def pair_offset_sigma(tech: Technology, w_in, l_in, w_load, l_load, gm_in, gm_load):
+    """Input-referred 1-sigma offset of a mirror-loaded pair from threshold mismatch (Pelgrom, 1989): each
+    matched pair contributes sqrt(2) avt / sqrt(W L); the load's is divided by the pair's gain gm_in/gm_load."""
+    pair = np.sqrt(2) * tech.avt("n") / np.sqrt(w_in * l_in)
+    load = np.sqrt(2) * tech.avt("p") / np.sqrt(w_load * l_load) * gm_load / gm_in
+    return np.sqrt(pair**2 + load**2)
+
+
+def pair_thermal_noise(tech: Technology, gm_in, gm_load):
+    """Input-referred white-noise density (V/sqrt(Hz)) of a mirror-loaded pair: both input devices and both
+    load devices, 4kT gamma / gm each, the load's referred through (gm_load/gm_in)^2."""
+    kt4 = 4 * BOLTZMANN * tech.temperature * GAMMA_THERMAL
+    return np.sqrt(2 * kt4 / gm_in * (1 + gm_load / gm_in))
+
+
 def device(tech: Technology, role, polarity, nodes, w, l, vgs, vds, vsb) -> Device:
     return Device(role, polarity, nodes, w, l, vgs, vds, vsb, tech.operating_point(polarity, w, l, vgs, vds, vsb))
 
@@ -52,7 +72,7 @@ class BiasBranch:
 
     def source(self, tech: Technology, role: str, drain: str, i_target, vds) -> tuple[Device, np.ndarray]:
         """An nMOS current source mirroring the branch at i_target, and the current it really carries."""
-        w = self.w_ref * i_target / self.i_ref
+        w = tech.quantize_width(self.w_ref * i_target / self.i_ref)
         zero = np.zeros_like(w)
         vds = vds + zero
         dev = device(tech, role, "n", (drain, "nb", "vss", "vss"), w, self.l, self.vgs, vds, zero)
@@ -119,8 +139,11 @@ class MirrorPair:
                    vsd_out, zero),
             tail,
         ]
+        gm_in, gm_load = devices[1].op.gm, devices[3].op.gm
         figures = {
             "i_tail": i5, "vsg_load": vsg3, "vgs_in": vgs1,
+            "offset_sigma_v": pair_offset_sigma(tech, self.w_in, self.l_in, self.w_load, self.l_load, gm_in, gm_load),
+            "noise_thermal_v_rthz": pair_thermal_noise(tech, gm_in, gm_load),
             "cm_low_v": tail.op.vdsat + vgs1,
             "cm_high_v": vdd - vsg3 + devices[0].op.vth,
             "offset_sys_v": vgs2 - vgs1,

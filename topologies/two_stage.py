@@ -37,7 +37,7 @@ class TwoStageMiller:
         pair = MirrorPair.sized(tech, x, vdd, vcm)
         l_drv = snap_length(x["l_drv"], tech)
         # Driver width mirrors the load's VSG so the input sees no systematic offset.
-        w_drv = x["i_out"] / tech.current("p", 1.0, l_drv, pair.vsg_load, vdd - vcm, zero)
+        w_drv = tech.quantize_width(x["i_out"] / tech.current("p", 1.0, l_drv, pair.vsg_load, vdd - vcm, zero))
 
         sink, i_sink = bias.source(tech, "output_sink", "out", x["i_out"], vcm)
         vsg6 = tech.vgs_for_current("p", w_drv, l_drv, i_sink, vdd - vcm, zero)
@@ -58,6 +58,8 @@ class TwoStageMiller:
             "cm_low_v": fig["cm_low_v"],
             "cm_high_v": fig["cm_high_v"],
             "offset_sys_v": fig["offset_sys_v"],
+            "offset_sigma_v": fig["offset_sigma_v"],
+            "noise_thermal_v_rthz": fig["noise_thermal_v_rthz"],
             "gbw_hand_hz": gbw_dominant_pole(first[1].op.gm, cc),
         }
         metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]

@@ -30,6 +30,10 @@ class OperatingPoint:
     csb: np.ndarray     # F, source junction at its bias
     vth: np.ndarray     # V, threshold at this VSB
     vdsat: np.ndarray   # V, drain-source voltage at which the device leaves saturation
+    # Optional full intrinsic charge matrix, c_ij = dQi/dVj in F for i, j in "g", "d", "s" (keys "gd" etc.;
+    # overlaps included, junctions not). When present the solver stamps it instead of cgs/cgd/cgb, which
+    # keeps the non-reciprocal transcapacitances of a charge-based model.
+    partials: dict[str, np.ndarray] | None = None
 
 
 @dataclass(frozen=True)
@@ -52,6 +56,7 @@ class Technology(Protocol):
     w_min: float           # m
     cap_density: float     # F/m^2 of the compensation capacitor
     gm_id_bounds: tuple[float, float]  # S/A range the model is valid over
+    spice_init: tuple[str, ...]        # lines the netlists' .spiceinit needs (ngspice compatibility mode)
 
     def operating_point(self, polarity: Polarity, w, l, vgs, vds, vsb) -> OperatingPoint: ...
 
@@ -61,6 +66,14 @@ class Technology(Protocol):
 
     def size(self, polarity: Polarity, gm_id, l, i_d, vds, vsb) -> tuple[np.ndarray, np.ndarray]:
         """Width (m) and VGS (V) giving drain current i_d at transconductance efficiency gm_id."""
+        ...
+
+    def avt(self, polarity: Polarity) -> float:
+        """Pelgrom threshold-mismatch coefficient, V*m: sigma(VT1 - VT2) / sqrt(2) = avt / sqrt(W L)."""
+        ...
+
+    def quantize_width(self, w) -> np.ndarray:
+        """The drawable width nearest w (finger multiples for table technologies)."""
         ...
 
     def spice_instance(self, name: str, polarity: Polarity, nodes: tuple[str, str, str, str],

@@ -35,6 +35,7 @@ class LevelOneDevice:
     cjsw: float      # F/m
     mjsw: float
     pb: float        # V
+    avt: float = float("nan")  # V*m, Pelgrom threshold-mismatch coefficient: sigma(dVT) = avt / sqrt(W L)
 
 
 @dataclass(frozen=True)
@@ -52,8 +53,15 @@ class SquareLaw:
     nmos: LevelOneDevice
     pmos: LevelOneDevice
     description: str = ""
+    spice_init: tuple[str, ...] = ()
     # Square law is a strong-inversion model; below ~0.1 V overdrive it overstates gm (common practice).
     gm_id_bounds: tuple[float, float] = (4.0, 20.0)
+
+    def quantize_width(self, w):
+        return np.asarray(w, float)
+
+    def avt(self, polarity: Polarity) -> float:
+        return self._dev(polarity).avt
 
     def _dev(self, polarity: Polarity) -> LevelOneDevice:
         return self.nmos if polarity == "n" else self.pmos

