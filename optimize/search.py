@@ -69,7 +69,8 @@ def run_search(problem: Problem, population: int, generations: int, seed: int,
     tracker = _Tracker(progress)
     res = minimize(problem, algorithm_for(problem.n_obj, population), ("n_gen", generations),
                    seed=seed, callback=tracker, verbose=False)
-    opt = res.opt
+    # pymoo leaves `opt` empty when no design was feasible: fall back to the least-violating ones.
+    opt = res.opt if res.opt is not None else res.pop[np.argsort(res.pop.get("CV").ravel())[:10]]
     feasible = opt.get("CV").ravel() <= 0
     X, F = opt.get("X"), opt.get("F")
     ok = bool(feasible.any())

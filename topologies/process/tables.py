@@ -75,6 +75,9 @@ class DeviceTable:
         self.values["gmid"] = self.values["gm"] - self.values["id"]
         # The same data with VGS last, so a whole VGS curve is one contiguous gather.
         self._by_curve = {q: np.ascontiguousarray(v.transpose(0, 2, 3, 1)) for q, v in self.values.items()}
+        # Every quantity of an operating point stacked on a last axis: one gather serves them all.
+        self.stacked_names = LOG_QUANTITIES + LINEAR_QUANTITIES
+        self._stacked = np.ascontiguousarray(np.stack([self._by_curve[q] for q in self.stacked_names], axis=-1))
 
     def _prepare(self, l, vds, vsb):
         """Interpolation weights over (L, VDS, VSB), shared by every VGS probe of a query.
@@ -86,24 +89,24 @@ class DeviceTable:
         il, tl = _bracket(self.l, l, np.log)
         ib, tb = _bracket(self.vsb, vsb, _body_scale)
         vds_start, vds_weights = _cubic(self.vds, vds)
-        corners = []
-        for a in (0, 1):
-            wl = tl if a else 1 - tl
-            for c in range(4):
-                wd = vds_weights[:, c]
-                for e in (0, 1):
-                    corners.append((il + a, vds_start + c, ib + e, wl * wd * (tb if e else 1 - tb)))
-        return corners
+        # All 2 x 4 x 2 corners as (N, 16) index and weight arrays, so each probe is one gather.
+        wl = np.stack([1 - tl, tl], axis=1)[:, :, None, None]
+        wd = vds_weights[:, None, :, None]
+        wb = np.stack([1 - tb, tb], axis=1)[:, None, None, :]
+        weights = (wl * wd * wb).reshape(len(il), -1)
+        grid = np.indices((2, 4, 2)).reshape(3, -1)
+        return ((il[:, None] + grid[0]), (vds_start[:, None] + grid[1]), (ib[:, None] + grid[2]), weights)
 
     @staticmethod
     def _probe(table, corners, k):
-        return sum(w * table[i, j, m, k] for i, j, m, w in corners)
+        i, j, m, w = corners
+        return (table[i, j, m, np.asarray(k)[:, None]] * w).sum(axis=1)
 
     def curve(self, name: str, l, vds, vsb) -> np.ndarray:
         """The quantity along the whole VGS axis for each query: shape (N, len(vgs))."""
         l, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vds, vsb)))
-        table = self._by_curve[name]
-        return sum(w[:, None] * table[i, j, m] for i, j, m, w in self._prepare(l, vds, vsb))
+        i, j, m, w = self._prepare(l, vds, vsb)
+        return (self._by_curve[name][i, j, m] * w[:, :, None]).sum(axis=1)
 
     def at(self, name: str, l, vgs, vds, vsb) -> np.ndarray:
         l, vgs, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vgs, vds, vsb)))
@@ -111,6 +114,17 @@ class DeviceTable:
         table = self._by_curve[name]
         corners = self._prepare(l, vds, vsb)
         return (1 - tg) * self._probe(table, corners, ig) + tg * self._probe(table, corners, ig + 1)
+
+    def at_all(self, l, vgs, vds, vsb) -> dict[str, np.ndarray]:
+        """Every stored quantity at once (logs for the exponential ones), one interpolation."""
+        l, vgs, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vgs, vds, vsb)))
+        ig, tg = _bracket(self.vgs, vgs)
+        corners = self._prepare(l, vds, vsb)
+        i, j, m, w = corners
+        low = (self._stacked[i, j, m, ig[:, None]] * w[:, :, None]).sum(axis=1)
+        high = (self._stacked[i, j, m, ig[:, None] + 1] * w[:, :, None]).sum(axis=1)
+        values = (1 - tg)[:, None] * low + tg[:, None] * high
+        return {name: values[:, k] for k, name in enumerate(self.stacked_names)}
 
     def solve_vgs(self, name: str, l, target, vds, vsb, from_top: bool = False) -> np.ndarray:
         """VGS where the (log) quantity reaches `target`, by bisection over the VGS grid, then linear
@@ -195,8 +209,9 @@ class TableProcess:
     def operating_point(self, polarity, w, l, vgs, vds, vsb) -> OperatingPoint:
         table = self._t(polarity)
         w = np.asarray(w, float)
-        log = {q: np.exp(table.at(q, l, vgs, vds, vsb)) * w for q in LOG_QUANTITIES}
-        lin = {q: table.at(q, l, vgs, vds, vsb) for q in LINEAR_QUANTITIES}
+        values = table.at_all(l, vgs, vds, vsb)
+        log = {q: np.exp(values[q]) * w for q in LOG_QUANTITIES}
+        lin = {q: values[q] for q in LINEAR_QUANTITIES}
         partials = {q[1:]: lin[q] * w for q in PARTIALS}
         return OperatingPoint(
             id=log["id"], gm=log["gm"], gds=log["gds"], gmb=log["gmb"],
