@@ -6,10 +6,11 @@ from importlib.metadata import entry_points
 
 from .base import Topology
 from .simple_ota import SimpleOTA
+from .telescopic import TelescopicCascode
 from .two_stage import TwoStageMiller
 
 ENTRY_POINT_GROUP = "ampfront.topologies"
-_BUILTIN: tuple[type, ...] = (SimpleOTA, TwoStageMiller)
+_BUILTIN: tuple[type, ...] = (SimpleOTA, TelescopicCascode, TwoStageMiller)
 
 
 class PluginError(Exception):

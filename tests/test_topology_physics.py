@@ -1,0 +1,32 @@
+"""Facts of the trade across topologies (common practice: any analog design text states them)."""
+
+import numpy as np
+
+from topologies.evaluate import evaluate
+from topologies.simple_ota import SimpleOTA
+from topologies.telescopic import TelescopicCascode
+
+from .helpers import DEMO_CONDITIONS, generic180, random_designs
+
+
+def test_telescopic_gain_is_of_order_gm_ro_squared():
+    """Common practice: cascoding multiplies the output resistance by a device's intrinsic gain gm*ro, so
+    a telescopic OTA's gain is of order (gm ro)^2, several times a simple OTA's at the same lengths."""
+    tech = generic180()
+    x = random_designs(TelescopicCascode(), tech, 400, seed=9)
+    tele, build = evaluate(TelescopicCascode(), x, tech, DEMO_CONDITIONS)
+    simple, _ = evaluate(SimpleOTA(), {k: x[k] for k in x if k in {v.name for v in SimpleOTA().variables(tech)}},
+                         tech, DEMO_CONDITIONS)
+    ok = (tele["sat_min_v"] > 0.05) & (simple["sat_min_v"] > 0.05)
+    assert ok.sum() > 20
+    op = {d.role: d.op for d in build.devices}
+    a_tele, a_simple = 10 ** (tele["gain_db"][ok] / 20), 10 ** (simple["gain_db"][ok] / 20)
+    assert np.median(a_tele / a_simple) > 5
+    # The hand form: A = gm1 (R_n || R_p), each cascoded side R = (gm + gmb)_cascode ro_cascode ro_below.
+    def side(cascode, below):
+        return (op[cascode].gm + op[cascode].gmb) / op[cascode].gds / op[below].gds
+
+    r_n, r_p = side("cascode_n_b", "input_pair_b"), side("cascode_p_b", "mirror_top_b")
+    hand = op["input_pair_b"].gm * r_n * r_p / (r_n + r_p)
+    ratio = a_tele / hand[ok]
+    assert np.all((ratio > 0.8) & (ratio < 1.25)), ratio

@@ -1,0 +1,110 @@
+"""Telescopic cascode OTA: nMOS input pair under nMOS cascodes, a wide-swing pMOS cascode mirror load,
+nMOS tail source, and the bias network: the nMOS diode reference plus two diode branches that set the
+cascode gates. One high-impedance node (the output), gain of order (gm ro)^2, and the tightest headroom
+of the family: every device of the stack must stay saturated between the rails.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .base import Build, Conditions, Element, Variable, gm_id_variable, length_variable, snap_length
+from .process.base import Technology, diode_vgs
+from .stages import BiasBranch, device, pair_offset_sigma, pair_thermal_noise, pair_variables
+
+
+class TelescopicCascode:
+    name = "telescopic_cascode"
+    title = "Telescopic cascode OTA"
+    prefix = "tel"
+
+    def variables(self, tech: Technology) -> tuple[Variable, ...]:
+        return pair_variables(tech) + (
+            gm_id_variable("gmid_casn", tech, "gm/ID of the nMOS cascodes"),
+            length_variable("l_casn", tech, "nMOS cascode length"),
+            gm_id_variable("gmid_casp", tech, "gm/ID of the pMOS cascodes"),
+            length_variable("l_casp", tech, "pMOS cascode length"),
+            Variable("headroom", 0.03, 0.3, "V", doc="VDS above Vdsat given to the input pair and mirror top"),
+        )
+
+    def build(self, x, tech: Technology, cond: Conditions) -> Build:
+        vdd, vcm = cond.vdd, cond.v_cm
+        zero = np.zeros_like(x["i_tail"])
+        bias = BiasBranch.sized(tech, x)
+        half = x["i_tail"] / 2
+        l_in, l_top = snap_length(x["l_in"], tech), snap_length(x["l_load"], tech)
+        l_cn, l_cp = snap_length(x["l_casn"], tech), snap_length(x["l_casp"], tech)
+        margin = x["headroom"]
+
+        # --- sizing ----------------------------------------------------------------------------------
+        vs = zero + vcm - 0.6
+        for _ in range(3):
+            w_in, vgs1 = tech.size("n", x["gmid_in"], l_in, half, zero + 0.3, vs)
+            vs = vcm - vgs1
+        vd_in = vs + 2.0 / x["gmid_in"] + margin           # input-pair drains: Vdsat ~ 2/(gm/ID) above
+        w_cn, vgs_cn = tech.size("n", x["gmid_casn"], l_cn, half, vcm - vd_in, vd_in)
+        vbn_target = vd_in + vgs_cn
+        w_top, vsg_top = tech.size("p", x["gmid_load"], l_top, half, 2.0 / x["gmid_load"] + margin, zero)
+        vp_top = vdd - (2.0 / x["gmid_load"] + margin)       # mirror-top drains
+        w_cp, vsg_cp = tech.size("p", x["gmid_casp"], l_cp, half, vp_top - vcm, vdd - vp_top)
+        vbp_target = vp_top - vsg_cp
+        # Cascode gate generators: diodes carrying the reference current, sized to land on the targets.
+        i_gen = bias.i_ref
+        w_bn = tech.quantize_width(i_gen / tech.current("n", 1.0, l_cn, vbn_target, vbn_target, zero))
+        w_bp = tech.quantize_width(i_gen / tech.current("p", 1.0, l_cp, vdd - vbp_target, vdd - vbp_target, zero))
+
+        # --- DC operating point from the sized circuit --------------------------------------------------
+        vbn = diode_vgs(tech, "n", w_bn, l_cn, i_gen)
+        vbp = vdd - diode_vgs(tech, "p", w_bp, l_cp, i_gen)
+        vs, xd, i5 = zero + vcm - 0.6, vd_in, x["i_tail"]
+        pa, mirc = vp_top, vdd - vsg_top
+        for _ in range(5):
+            _, i5 = bias.source(tech, "tail_source", "tail", x["i_tail"], np.maximum(vs, 1e-3))
+            i1 = i5 / 2
+            vgs1 = tech.vgs_for_current("n", w_in, l_in, i1, np.maximum(xd - vs, 1e-3), vs)
+            vs = vcm - vgs1
+            xd = vbn - tech.vgs_for_current("n", w_cn, l_cn, i1, np.maximum(vcm - xd, 1e-3), xd)
+            vsg_t = tech.vgs_for_current("p", w_top, l_top, i1, np.maximum(vdd - pa, 1e-3), zero)
+            mirc = vdd - vsg_t
+            pa = vbp + tech.vgs_for_current("p", w_cp, l_cp, i1, np.maximum(pa - mirc, 1e-3), vdd - pa)
+        vsd_right = pa - vcm   # the output sits at the common-mode level; the right side mirrors the left
+
+        def dev(role, pol, nodes, w, l, vgs, vds, vsb):
+            return device(tech, role, pol, nodes, w, l, vgs, vds, vsb)
+
+        devices = [
+            dev("input_pair_a", "n", ("xa", "inp", "tail", "vss"), w_in, l_in, vgs1, xd - vs, vs),
+            dev("input_pair_b", "n", ("xb", "inn", "tail", "vss"), w_in, l_in, vgs1, xd - vs, vs),
+            dev("cascode_n_a", "n", ("mirc", "vbn", "xa", "vss"), w_cn, l_cn, vbn - xd, mirc - xd, xd),
+            dev("cascode_n_b", "n", ("out", "vbn", "xb", "vss"), w_cn, l_cn, vbn - xd, vcm - xd, xd),
+            dev("mirror_top_a", "p", ("pa", "mirc", "vdd", "vdd"), w_top, l_top, vsg_t, vdd - pa, zero),
+            dev("mirror_top_b", "p", ("pb", "mirc", "vdd", "vdd"), w_top, l_top, vsg_t, vdd - pa, zero),
+            dev("cascode_p_a", "p", ("mirc", "vbp", "pa", "vdd"), w_cp, l_cp, pa - vbp, pa - mirc, vdd - pa),
+            dev("cascode_p_b", "p", ("out", "vbp", "pb", "vdd"), w_cp, l_cp, pa - vbp, vsd_right, vdd - pa),
+        ]
+        tail, _ = bias.source(tech, "tail_source", "tail", x["i_tail"], vs)
+        devices += [
+            tail,
+            bias.diode(tech),
+            dev("cascode_bias_n", "n", ("vbn", "vbn", "vss", "vss"), w_bn, l_cn, vbn, vbn, zero),
+            dev("cascode_bias_p", "p", ("vbp", "vbp", "vdd", "vdd"), w_bp, l_cp, vdd - vbp, vdd - vbp, zero),
+        ]
+        elements = [
+            Element("I", "bias_reference", "vdd", "nb", bias.i_ref),
+            Element("I", "cascode_n_reference", "vdd", "vbn", i_gen),
+            Element("I", "cascode_p_reference", "vbp", "vss", i_gen),
+        ]
+        op = {d.role: d for d in devices}
+        gm_in, gm_top = op["input_pair_a"].op.gm, op["mirror_top_a"].op.gm
+        metrics = {
+            "slew_v_per_us": i5 / cond.c_load * 1e-6,
+            "out_high_v": pa - op["cascode_p_b"].op.vdsat,
+            "out_low_v": xd + op["cascode_n_b"].op.vdsat,
+            "cm_low_v": tail.op.vdsat + vgs1,
+            "cm_high_v": xd + op["input_pair_a"].op.vth,
+            "offset_sys_v": zero,
+            "offset_sigma_v": pair_offset_sigma(tech, w_in, l_in, w_top, l_top, gm_in, gm_top),
+            "noise_thermal_v_rthz": pair_thermal_noise(tech, gm_in, gm_top),
+        }
+        metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
+        return Build(devices, elements, bias.i_ref + i5 + 2 * i_gen, metrics)
