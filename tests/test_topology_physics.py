@@ -30,3 +30,22 @@ def test_telescopic_gain_is_of_order_gm_ro_squared():
     hand = op["input_pair_b"].gm * r_n * r_p / (r_n + r_p)
     ratio = a_tele / hand[ok]
     assert np.all((ratio > 0.8) & (ratio < 1.25)), ratio
+
+
+def test_folded_cascode_burns_more_current_than_telescopic_for_the_same_input_gm():
+    """Common practice: the folded cascode's folding sources carry the input pair's current plus the
+    cascode branch current, so at equal input gm it draws more supply current than a telescopic."""
+    from topologies.folded import FoldedCascode
+
+    tech = generic180()
+    x = random_designs(FoldedCascode(), tech, 300, seed=4)
+    folded, fb = evaluate(FoldedCascode(), x, tech, DEMO_CONDITIONS)
+    tele_names = {v.name for v in TelescopicCascode().variables(tech)}
+    tele_x = {k: v for k, v in x.items() if k in tele_names}
+    tele_x.update({k: random_designs(TelescopicCascode(), tech, 300, seed=4)[k] for k in tele_names - set(x)})
+    tele, tb = evaluate(TelescopicCascode(), tele_x, tech, DEMO_CONDITIONS)
+    gm_f = {d.role: d.op for d in fb.devices}["input_pair_a"].gm
+    gm_t = {d.role: d.op for d in tb.devices}["input_pair_a"].gm
+    ok = (folded["sat_min_v"] > 0.05) & (tele["sat_min_v"] > 0.05) & np.isclose(gm_f, gm_t, rtol=0.05)
+    assert ok.sum() > 10
+    assert np.all(folded["supply_current_a"][ok] > tele["supply_current_a"][ok])

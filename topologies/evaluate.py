@@ -31,8 +31,10 @@ def small_signal(build: Build, cond: Conditions) -> Circuit:
 
 def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, cond: Conditions):
     """Return (metrics, build): metrics maps names to arrays of shape (designs,)."""
-    build = topology.build(x, tech, cond)
-    loop = loop_metrics(small_signal(build, cond), "out")
+    # Dead or off-table devices give inf/NaN for their designs only; the search reads those as violations.
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        build = topology.build(x, tech, cond)
+        loop = loop_metrics(small_signal(build, cond), "out")
     gate_area = sum(d.w * d.l for d in build.devices)
     cap_area = sum(e.value for e in build.elements if e.kind == "C") / tech.cap_density
     sat = {f"sat_{d.role}_v": d.vds - d.op.vdsat for d in build.devices}

@@ -5,12 +5,13 @@ from __future__ import annotations
 from importlib.metadata import entry_points
 
 from .base import Topology
+from .folded import FoldedCascode
 from .simple_ota import SimpleOTA
 from .telescopic import TelescopicCascode
 from .two_stage import TwoStageMiller
 
 ENTRY_POINT_GROUP = "ampfront.topologies"
-_BUILTIN: tuple[type, ...] = (SimpleOTA, TelescopicCascode, TwoStageMiller)
+_BUILTIN: tuple[type, ...] = (SimpleOTA, TelescopicCascode, FoldedCascode, TwoStageMiller)
 
 
 class PluginError(Exception):

@@ -1,0 +1,133 @@
+"""Folded cascode OTA: nMOS input pair folding into pMOS current sources, pMOS cascodes carrying the signal
+down to a wide-swing nMOS cascode mirror, nMOS tail source, and a bias network of diode branches for the
+source and cascode gates. Input common mode can reach the upper rail; the price is the extra branch
+current the folding sources carry.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .base import Build, Conditions, Element, Variable, gm_id_variable, length_variable, snap_length
+from .process.base import Technology, diode_vgs
+from .stages import BiasBranch, device, pair_thermal_noise, pair_variables
+
+
+def _mismatch(tech: Technology, polarity, w, l):
+    """1-sigma threshold difference of a matched pair (Pelgrom)."""
+    return np.sqrt(2) * tech.avt(polarity) / np.sqrt(w * l)
+
+
+class FoldedCascode:
+    name = "folded_cascode"
+    title = "Folded cascode OTA"
+    prefix = "fcs"
+
+    def variables(self, tech: Technology) -> tuple[Variable, ...]:
+        return pair_variables(tech) + (
+            Variable("fold_ratio", 0.3, 2.0, "1", doc="cascode-branch current / half the tail current"),
+            gm_id_variable("gmid_src", tech, "gm/ID of the pMOS folding sources"),
+            length_variable("l_src", tech, "pMOS folding source length"),
+            gm_id_variable("gmid_casp", tech, "gm/ID of the pMOS cascodes"),
+            length_variable("l_casp", tech, "pMOS cascode length"),
+            gm_id_variable("gmid_casn", tech, "gm/ID of the nMOS cascodes"),
+            length_variable("l_casn", tech, "nMOS cascode length"),
+            Variable("headroom", 0.03, 0.3, "V", doc="VDS above Vdsat given to the sources and mirror bottom"),
+        )
+
+    def build(self, x, tech: Technology, cond: Conditions) -> Build:
+        vdd, vcm = cond.vdd, cond.v_cm
+        zero = np.zeros_like(x["i_tail"])
+        bias = BiasBranch.sized(tech, x)
+        half = x["i_tail"] / 2
+        i_cas_t = half * x["fold_ratio"]
+        i_src_t = half + i_cas_t
+        l_in, l_mb = snap_length(x["l_in"], tech), snap_length(x["l_load"], tech)
+        l_src, l_cp, l_cn = (snap_length(x[k], tech) for k in ("l_src", "l_casp", "l_casn"))
+        margin = x["headroom"]
+
+        # --- sizing ----------------------------------------------------------------------------------
+        fa_t = vdd - (2.0 / x["gmid_src"] + margin)
+        vs = zero + vcm - 0.6
+        for _ in range(3):
+            w_in, vgs1 = tech.size("n", x["gmid_in"], l_in, half, np.maximum(fa_t - vs, 0.05), vs)
+            vs = vcm - vgs1
+        w_src, vsg_src = tech.size("p", x["gmid_src"], l_src, i_src_t, vdd - fa_t, zero)
+        w_mb, vgs_mb = tech.size("n", x["gmid_load"], l_mb, i_cas_t, 2.0 / x["gmid_load"] + margin, zero)
+        na_t = 2.0 / x["gmid_load"] + margin
+        w_cn, vgs_cn = tech.size("n", x["gmid_casn"], l_cn, i_cas_t, np.maximum(vcm - na_t, 0.05), na_t)
+        w_cp, vsg_cp = tech.size("p", x["gmid_casp"], l_cp, i_cas_t, np.maximum(fa_t - vgs_mb, 0.05), vdd - fa_t)
+        targets = {"vbp1": vdd - vsg_src, "vbp2": fa_t - vsg_cp, "vbn": na_t + vgs_cn}
+        i_gen = bias.i_ref
+
+        def generator(polarity, length, level):
+            vgs = level if polarity == "n" else vdd - level
+            return tech.quantize_width(i_gen / tech.current(polarity, 1.0, length, vgs, vgs, zero))
+
+        w_b1, w_b2, w_bn = generator("p", l_src, targets["vbp1"]), generator("p", l_cp, targets["vbp2"]), \
+            generator("n", l_cn, targets["vbn"])
+
+        # --- DC operating point from the sized circuit --------------------------------------------------
+        vbp1 = vdd - diode_vgs(tech, "p", w_b1, l_src, i_gen)
+        vbp2 = vdd - diode_vgs(tech, "p", w_b2, l_cp, i_gen)
+        vbn = diode_vgs(tech, "n", w_bn, l_cn, i_gen)
+        fa, na, mirc, vs = fa_t, na_t, vgs_mb, zero + vcm - 0.6
+        for _ in range(6):
+            _, i5 = bias.source(tech, "tail_source", "tail", x["i_tail"], np.maximum(vs, 1e-3))
+            i1 = i5 / 2
+            vgs1 = tech.vgs_for_current("n", w_in, l_in, i1, np.maximum(fa - vs, 1e-3), vs)
+            vs = vcm - vgs1
+            i_src = tech.current("p", w_src, l_src, vdd - vbp1, np.maximum(vdd - fa, 1e-3), zero)
+            i_cas = np.maximum(i_src - i1, 1e-12)
+            fa = vbp2 + tech.vgs_for_current("p", w_cp, l_cp, i_cas, np.maximum(fa - mirc, 1e-3), vdd - fa)
+            mirc = tech.vgs_for_current("n", w_mb, l_mb, i_cas, np.maximum(na, 1e-3), zero)
+            na = vbn - tech.vgs_for_current("n", w_cn, l_cn, i_cas, np.maximum(mirc - na, 1e-3), na)
+
+        def dev(role, pol, nodes, w, l, vgs, vds, vsb):
+            return device(tech, role, pol, nodes, w, l, vgs, vds, vsb)
+
+        vsg_cp = fa - vbp2
+        vgs_cn = vbn - na
+        devices = [
+            dev("input_pair_a", "n", ("fa", "inp", "tail", "vss"), w_in, l_in, vgs1, fa - vs, vs),
+            dev("input_pair_b", "n", ("fb", "inn", "tail", "vss"), w_in, l_in, vgs1, fa - vs, vs),
+            dev("fold_source_a", "p", ("fa", "vbp1", "vdd", "vdd"), w_src, l_src, vdd - vbp1, vdd - fa, zero),
+            dev("fold_source_b", "p", ("fb", "vbp1", "vdd", "vdd"), w_src, l_src, vdd - vbp1, vdd - fa, zero),
+            dev("cascode_p_a", "p", ("mirc", "vbp2", "fa", "vdd"), w_cp, l_cp, vsg_cp, fa - mirc, vdd - fa),
+            dev("cascode_p_b", "p", ("out", "vbp2", "fb", "vdd"), w_cp, l_cp, vsg_cp, fa - vcm, vdd - fa),
+            dev("cascode_n_a", "n", ("mirc", "vbn", "na", "vss"), w_cn, l_cn, vgs_cn, mirc - na, na),
+            dev("cascode_n_b", "n", ("out", "vbn", "nb2", "vss"), w_cn, l_cn, vgs_cn, vcm - na, na),
+            dev("mirror_bottom_a", "n", ("na", "mirc", "vss", "vss"), w_mb, l_mb, mirc, na, zero),
+            dev("mirror_bottom_b", "n", ("nb2", "mirc", "vss", "vss"), w_mb, l_mb, mirc, na, zero),
+        ]
+        tail, _ = bias.source(tech, "tail_source", "tail", x["i_tail"], vs)
+        devices += [
+            tail,
+            bias.diode(tech),
+            dev("source_bias", "p", ("vbp1", "vbp1", "vdd", "vdd"), w_b1, l_src, vdd - vbp1, vdd - vbp1, zero),
+            dev("cascode_bias_p", "p", ("vbp2", "vbp2", "vdd", "vdd"), w_b2, l_cp, vdd - vbp2, vdd - vbp2, zero),
+            dev("cascode_bias_n", "n", ("vbn", "vbn", "vss", "vss"), w_bn, l_cn, vbn, vbn, zero),
+        ]
+        elements = [
+            Element("I", "bias_reference", "vdd", "nb", bias.i_ref),
+            Element("I", "source_reference", "vbp1", "vss", i_gen),
+            Element("I", "cascode_p_reference", "vbp2", "vss", i_gen),
+            Element("I", "cascode_n_reference", "vdd", "vbn", i_gen),
+        ]
+        op = {d.role: d for d in devices}
+        gm_in, gm_src, gm_mb = (op[r].op.gm for r in ("input_pair_a", "fold_source_a", "mirror_bottom_a"))
+        offset = np.sqrt(_mismatch(tech, "n", w_in, l_in) ** 2
+                         + (gm_src / gm_in * _mismatch(tech, "p", w_src, l_src)) ** 2
+                         + (gm_mb / gm_in * _mismatch(tech, "n", w_mb, l_mb)) ** 2)
+        metrics = {
+            "slew_v_per_us": np.minimum(i5, i_src) / cond.c_load * 1e-6,
+            "out_high_v": fa - op["cascode_p_b"].op.vdsat,
+            "out_low_v": na + op["cascode_n_b"].op.vdsat,
+            "cm_low_v": tail.op.vdsat + vgs1,
+            "cm_high_v": fa + op["input_pair_a"].op.vth,
+            "offset_sys_v": zero,
+            "offset_sigma_v": offset,
+            "noise_thermal_v_rthz": pair_thermal_noise(tech, gm_in, gm_src + gm_mb),
+        }
+        metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
+        return Build(devices, elements, bias.i_ref + 2 * i_src + 3 * i_gen, metrics)
