@@ -25,17 +25,20 @@ def test_shapes_finiteness_and_determinism(name):
     for key in ("gain_db", "gbw_hz", "phase_margin_deg", "power_w", "area_um2", "slew_v_per_us", "swing_v",
                 "cm_low_v", "cm_high_v", "sat_min_v"):
         assert metrics[key].shape == (64,), key
+    # A design the topology cannot bias (a cascode gate below threshold, say) reads NaN, which the search
+    # treats as violating every constraint; most random designs must still evaluate.
     for key in ("gain_db", "power_w", "area_um2", "slew_v_per_us", "sat_min_v"):
-        assert np.isfinite(metrics[key]).all(), key
-    assert (metrics["power_w"] > 0).all() and (metrics["area_um2"] > 0).all()
+        assert np.isfinite(metrics[key]).mean() > 0.6, key
+    valid = np.isfinite(metrics["gain_db"])
+    assert (metrics["power_w"][valid] > 0).all() and (metrics["area_um2"][valid] > 0).all()
     # Non-inverting from inp to out, or the testbench's DC feedback would latch instead of following.
     from topologies.evaluate import small_signal
 
-    assert (small_signal(build, DEMO_CONDITIONS).dc_gain("out") > -1e-9).all()
+    assert (small_signal(build, DEMO_CONDITIONS).dc_gain("out")[valid] > -1e-9).all()
     assert len({d.role for d in build.devices}) == len(build.devices)
     again, _ = evaluate(topology, x, tech, DEMO_CONDITIONS)
     for key in metrics:
-        np.testing.assert_array_equal(metrics[key], again[key])
+        np.testing.assert_array_equal(metrics[key], again[key])  # NaN compares equal here
     assert pickle.loads(pickle.dumps(topology)).name == name
 
 

@@ -89,7 +89,13 @@ class Topology(Protocol):
 
 
 def snap_length(l, tech: Technology, grid: float = 5e-9):
-    """Drawn lengths on a 5 nm grid, within the technology's limits."""
+    """Drawn lengths: the technology's characterized lengths when it has them (tables are exact there and
+    interpolate only in bias), otherwise a 5 nm grid within the technology's limits."""
+    lengths = getattr(tech, "length_grid", None)
+    if lengths is not None:
+        logs = np.log(lengths)
+        k = np.abs(np.log(np.asarray(l, float))[..., None] - logs).argmin(axis=-1)
+        return lengths[k]
     return np.clip(np.round(np.asarray(l) / grid) * grid, tech.l_min, tech.l_max)
 
 

@@ -23,6 +23,9 @@ def small_signal(build: Build, cond: Conditions) -> Circuit:
             circuit.resistor(e.a, e.b, e.value)
         elif e.kind == "C":
             circuit.capacitor(e.a, e.b, e.value)
+    # The simulator's gmin: 1 pS from every node to ground keeps a dead device's node from floating.
+    for node in nodes:
+        circuit.conductance(node, "0", 1e-12)
     circuit.capacitor("out", "0", cond.c_load)
     if np.isfinite(cond.r_load):
         circuit.resistor("out", "0", cond.r_load)

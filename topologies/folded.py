@@ -72,16 +72,27 @@ class FoldedCascode:
         vbp2 = vdd - diode_vgs(tech, "p", w_b2, l_cp, i_gen)
         vbn = diode_vgs(tech, "n", w_bn, l_cn, i_gen)
         fa, na, mirc, vs = fa_t, na_t, vgs_mb, zero + vcm - 0.6
-        for _ in range(6):
+        fb, nb2, i1, i2 = fa, na, half, half
+        for _ in range(14):
             _, i5 = bias.source(tech, "tail_source", "tail", x["i_tail"], np.maximum(vs, 1e-3))
-            i1 = i5 / 2
             vgs1 = tech.vgs_for_current("n", w_in, l_in, i1, np.maximum(fa - vs, 1e-3), vs)
             vs = vcm - vgs1
+            # Mirror side: the folding source minus the input device feeds the diode-connected stack.
             i_src = tech.current("p", w_src, l_src, vdd - vbp1, np.maximum(vdd - fa, 1e-3), zero)
             i_cas = np.maximum(i_src - i1, 1e-12)
             fa = vbp2 + tech.vgs_for_current("p", w_cp, l_cp, i_cas, np.maximum(fa - mirc, 1e-3), vdd - fa)
             mirc = tech.vgs_for_current("n", w_mb, l_mb, i_cas, np.maximum(na, 1e-3), zero)
             na = vbn - tech.vgs_for_current("n", w_cn, l_cn, i_cas, np.maximum(mirc - na, 1e-3), na)
+            # Output side, with the output held at the common mode by the loop: the mirror copy sets the
+            # branch current, and the input pair's split (an input offset) balances the folding source.
+            i_out = tech.current("n", w_mb, l_mb, mirc, np.maximum(nb2, 1e-3), zero)
+            nb2 = vbn - tech.vgs_for_current("n", w_cn, l_cn, i_out, np.maximum(vcm - nb2, 1e-3), nb2)
+            fb = vbp2 + tech.vgs_for_current("p", w_cp, l_cp, i_out, np.maximum(fb - vcm, 1e-3), vdd - fb)
+            i_src_b = tech.current("p", w_src, l_src, vdd - vbp1, np.maximum(vdd - fb, 1e-3), zero)
+            # Damped: the split feeds back through both folding nodes and overshoots when taken whole.
+            i2 = 0.5 * i2 + 0.5 * np.clip(i_src_b - i_out, 1e-3 * i5, (1 - 1e-3) * i5)
+            i1 = i5 - i2
+        vgs2 = tech.vgs_for_current("n", w_in, l_in, i2, np.maximum(fb - vs, 1e-3), vs)
 
         def dev(role, pol, nodes, w, l, vgs, vds, vsb):
             return device(tech, role, pol, nodes, w, l, vgs, vds, vsb)
@@ -90,15 +101,15 @@ class FoldedCascode:
         vgs_cn = vbn - na
         devices = [
             dev("input_pair_a", "n", ("fa", "inp", "tail", "vss"), w_in, l_in, vgs1, fa - vs, vs),
-            dev("input_pair_b", "n", ("fb", "inn", "tail", "vss"), w_in, l_in, vgs1, fa - vs, vs),
+            dev("input_pair_b", "n", ("fb", "inn", "tail", "vss"), w_in, l_in, vgs2, fb - vs, vs),
             dev("fold_source_a", "p", ("fa", "vbp1", "vdd", "vdd"), w_src, l_src, vdd - vbp1, vdd - fa, zero),
-            dev("fold_source_b", "p", ("fb", "vbp1", "vdd", "vdd"), w_src, l_src, vdd - vbp1, vdd - fa, zero),
+            dev("fold_source_b", "p", ("fb", "vbp1", "vdd", "vdd"), w_src, l_src, vdd - vbp1, vdd - fb, zero),
             dev("cascode_p_a", "p", ("mirc", "vbp2", "fa", "vdd"), w_cp, l_cp, vsg_cp, fa - mirc, vdd - fa),
-            dev("cascode_p_b", "p", ("out", "vbp2", "fb", "vdd"), w_cp, l_cp, vsg_cp, fa - vcm, vdd - fa),
+            dev("cascode_p_b", "p", ("out", "vbp2", "fb", "vdd"), w_cp, l_cp, fb - vbp2, fb - vcm, vdd - fb),
             dev("cascode_n_a", "n", ("mirc", "vbn", "na", "vss"), w_cn, l_cn, vgs_cn, mirc - na, na),
-            dev("cascode_n_b", "n", ("out", "vbn", "nb2", "vss"), w_cn, l_cn, vgs_cn, vcm - na, na),
+            dev("cascode_n_b", "n", ("out", "vbn", "nb2", "vss"), w_cn, l_cn, vbn - nb2, vcm - nb2, nb2),
             dev("mirror_bottom_a", "n", ("na", "mirc", "vss", "vss"), w_mb, l_mb, mirc, na, zero),
-            dev("mirror_bottom_b", "n", ("nb2", "mirc", "vss", "vss"), w_mb, l_mb, mirc, na, zero),
+            dev("mirror_bottom_b", "n", ("nb2", "mirc", "vss", "vss"), w_mb, l_mb, mirc, nb2, zero),
         ]
         tail, _ = bias.source(tech, "tail_source", "tail", x["i_tail"], vs)
         devices += [
@@ -121,13 +132,13 @@ class FoldedCascode:
                          + (gm_mb / gm_in * _mismatch(tech, "n", w_mb, l_mb)) ** 2)
         metrics = {
             "slew_v_per_us": np.minimum(i5, i_src) / cond.c_load * 1e-6,
-            "out_high_v": fa - op["cascode_p_b"].op.vdsat,
-            "out_low_v": na + op["cascode_n_b"].op.vdsat,
+            "out_high_v": fb - op["cascode_p_b"].op.vdsat,
+            "out_low_v": nb2 + op["cascode_n_b"].op.vdsat,
             "cm_low_v": tail.op.vdsat + vgs1,
             "cm_high_v": fa + op["input_pair_a"].op.vth,
-            "offset_sys_v": zero,
+            "offset_sys_v": vgs2 - vgs1,
             "offset_sigma_v": offset,
             "noise_thermal_v_rthz": pair_thermal_noise(tech, gm_in, gm_src + gm_mb),
         }
         metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
-        return Build(devices, elements, bias.i_ref + 2 * i_src + 3 * i_gen, metrics)
+        return Build(devices, elements, bias.i_ref + i_src + i_src_b + 3 * i_gen, metrics)

@@ -185,6 +185,11 @@ class TableProcess:
         return np.maximum(np.round(np.asarray(w) / wf), 1.0) * wf
 
     @property
+    def length_grid(self) -> np.ndarray:
+        """Lengths characterized for both polarities, m: designs use these exactly."""
+        return np.intersect1d(np.round(self.nmos.l, 12), np.round(self.pmos.l, 12))
+
+    @property
     def l_min(self) -> float:
         return float(self.nmos.l[0])
 
