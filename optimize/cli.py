@@ -44,6 +44,9 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
         _fail(str(error), 2)
     except NoFeasibleDesign as error:
         _fail(str(error), 3)
+    for key, value in summary.items():
+        if key.endswith("(no feasible design)"):
+            err.print(f"{key.split(' ')[0]}: {value}", highlight=False, markup=False)
     err.print(f"{summary['front designs']} front designs from {summary['designs evaluated']} evaluated "
               f"in {summary['wall time']} -> {out}/report.html", highlight=False)
 

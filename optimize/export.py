@@ -39,7 +39,7 @@ def front_table(topology_name: str, names: list[str], metrics: dict[str, np.ndar
         table[f"id_{d.role}_a"] = d.op.id
     for e in build.elements:
         table[f"{e.kind.lower()}_{e.role}"] = e.value
-    return pd.DataFrame(table)
+    return pd.DataFrame(table).copy()
 
 
 def device_table(build: Build, i: int) -> pd.DataFrame:

@@ -91,17 +91,24 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     if seed is not None:
         study = Study(**{**study.__dict__, "seed": seed})
     tech = load(study.technology, study.corner)
-    fronts = []
+    fronts, misses = [], {}
     for name in study.topologies:
         progress = progress_factory(name, study.generations) if progress_factory else None
-        fronts.append(search_topology(study, tech, name, progress))
-    table = pd.concat([f.table for f in fronts], ignore_index=True)
+        try:
+            fronts.append(search_topology(study, tech, name, progress))
+        except NoFeasibleDesign as missed:
+            # One topology that cannot meet the spec is an answer too; the study goes on without it.
+            misses[name] = str(missed)
+    if not fronts:
+        raise NoFeasibleDesign("; ".join(misses.values()))
+    table = pd.concat([f.table for f in fronts], ignore_index=True).copy()
     table.insert(2, "on_merged_front", merged_front(table, study.objectives))
     evaluations = sum(f.evaluations for f in fronts)
     wall = time.perf_counter() - started
     summary = {"technology": tech.name, "seed": study.seed, "population": study.population,
                "generations": study.generations, "designs evaluated": evaluations,
                "front designs": len(table), "wall time": f"{wall:.1f} s"}
+    summary.update({f"{name} (no feasible design)": text.split(": ", 1)[1] for name, text in misses.items()})
     with staged_directory(out) as stage:
         table.to_csv(stage / "front.csv", index=False, float_format="%.9g")
         (stage / "report.html").write_text(report.render(table, study, tech.name, summary), encoding="utf-8")
@@ -115,7 +122,7 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
             "topologies": list(study.topologies), "objectives": list(study.objectives),
             "population": study.population, "generations": study.generations,
             "evaluations": evaluations, "wall_time_s": round(time.perf_counter() - started, 3),
-            "front_designs": len(table),
+            "front_designs": len(table), "infeasible_topologies": misses,
             "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
         })
     return summary
