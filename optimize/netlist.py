@@ -79,6 +79,18 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         "setplot noise1",
         "let noise_nv = inoise_spectrum[5] * 1e9",  # ngspice reports V/sqrt(Hz)
         f"echo {tag} noise_nv_rthz $&noise_nv",
+        # Common-mode and supply gains at 0.1 Hz: the AC source moved to the common-mode level, then to
+        # the supply. Rejection ratios are the open-loop gain over these.
+        "alter vin ac = 0",
+        "alter vcm ac = 1",
+        "ac lin 1 0.1 0.1",
+        "let cm_gain = db(mag(v(out)))",
+        f"echo {tag} cm_gain_db $&cm_gain",
+        "alter vcm ac = 0",
+        "alter vsupply ac = 1",
+        "ac lin 1 0.1 0.1",
+        "let supply_gain = db(mag(v(out)))",
+        f"echo {tag} supply_gain_db $&supply_gain",
         "quit 0",
         ".endc",
         ".end",

@@ -11,7 +11,8 @@ from .netlist import RESULT_TAG
 # What a testbench prints, in the units it prints them, and the front.csv column each checks.
 MEASURED = {"gain_db": ("gain_db", 1.0), "gbw_hz": ("gbw_hz", 1.0),
             "phase_margin_deg": ("phase_margin_deg", 1.0), "supply_current_ua": ("supply_current_a", 1e-6),
-            "noise_nv_rthz": ("noise_thermal_v_rthz", 1e-9)}
+            "noise_nv_rthz": ("noise_thermal_v_rthz", 1e-9), "cm_gain_db": ("cm_gain_db", 1.0),
+            "supply_gain_db": ("supply_gain_db", 1.0)}
 
 
 class SpiceError(Exception):
@@ -41,4 +42,7 @@ def simulate(testbench: Path, timeout: float = 120.0) -> dict[str, float]:
     if proc.returncode != 0 or missing:
         tail = (proc.stderr or proc.stdout).strip().splitlines()[-3:]
         raise SpiceError(f"{testbench}: ngspice exit {proc.returncode}, missing {missing}: {' | '.join(tail)}")
-    return {column: values[key] * scale for key, (column, scale) in MEASURED.items()}
+    out = {column: values[key] * scale for key, (column, scale) in MEASURED.items()}
+    out["cmrr_db"] = out["gain_db"] - out.pop("cm_gain_db")
+    out["psrr_db"] = out["gain_db"] - out.pop("supply_gain_db")
+    return out

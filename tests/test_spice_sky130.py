@@ -5,14 +5,19 @@ on the netlists and testbenches ampfront exports. Bounds from the issue: DC gain
 margin 5 deg, supply current 3 %.
 """
 
+import pandas as pd
 import pytest
 
 from optimize.verify import BOUNDS, check_folder
 
 
 @pytest.mark.spice
-def test_sky130_front_designs_match_bsim4(demo_run):
-    table = check_folder(demo_run, 5)
+def test_sky130_front_designs_match_bsim4(demo_run, tmp_path):
+    front = pd.read_csv(demo_run / "front.csv")
+    front[front["topology"] == "two_stage_miller"].to_csv(tmp_path / "front.csv", index=False)
+    (tmp_path / "netlists").symlink_to(demo_run / "netlists")
+    (tmp_path / "manifest.json").symlink_to(demo_run / "manifest.json")
+    table = check_folder(tmp_path, 5)
     assert len(table) == 5
     for column, (kind, bound) in BOUNDS["gm_id_tables"].items():
         model, spice = table[f"{column}_model"], table[f"{column}_spice"]

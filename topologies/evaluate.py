@@ -9,13 +9,19 @@ from .process.base import Technology
 from .smallsignal import Circuit, loop_metrics
 
 
-def small_signal(build: Build, cond: Conditions) -> Circuit:
+# What the AC source moves in each measurement: the differential (open-loop) gain drives inp with inn held
+# at AC ground by the DC feedback path, as the testbench does; common mode drives both inputs; supply
+# rejection drives vdd with both inputs still.
+DRIVES = {"differential": ("inp", ("inn",)), "common_mode": (("inp", "inn"), ()), "supply": ("vdd", ("inp", "inn"))}
+
+
+def small_signal(build: Build, cond: Conditions, mode: str = "differential") -> Circuit:
     nodes = sorted({n for d in build.devices for n in d.nodes}
                    | {n for e in build.elements for n in (e.a, e.b)} | {"out"})
     nodes = [n for n in nodes if n not in ("inp", "inn", "vdd", "vss", "0")]
     designs = len(build.supply_current)
-    # Open loop as a simulator measures it: inp driven, inn held at AC ground by the DC feedback path.
-    circuit = Circuit(nodes, designs, drive="inp", grounds=("inn",))
+    drive, grounds = DRIVES[mode]
+    circuit = Circuit(nodes, designs, drive=drive, grounds=grounds)
     for d in build.devices:
         circuit.mosfet(*d.nodes, d.op)
     for e in build.elements:
@@ -38,6 +44,10 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         build = topology.build(x, tech, cond)
         loop = loop_metrics(small_signal(build, cond), "out")
+        a_cm = small_signal(build, cond, "common_mode").dc_gain("out")
+        a_dd = small_signal(build, cond, "supply").dc_gain("out")
+        cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
+        psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     gate_area = sum(d.w * d.l for d in build.devices)
     cap_area = sum(e.value for e in build.elements if e.kind == "C") / tech.cap_density
     sat = {f"sat_{d.role}_v": d.vds - d.op.vdsat for d in build.devices}
@@ -46,6 +56,9 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         "gbw_hz": loop.gbw,
         "phase_margin_deg": loop.phase_margin,
         "gain_margin_db": loop.gain_margin,
+        # Low-frequency rejection ratios of the ideal (unmismatched) circuit.
+        "cmrr_db": cmrr,
+        "psrr_db": psrr,
         "power_w": cond.vdd * build.supply_current,
         "supply_current_a": build.supply_current,
         "area_um2": (gate_area + cap_area) * 1e12,

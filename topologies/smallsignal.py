@@ -28,8 +28,11 @@ def solve_batched(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 class Circuit:
     """Linear circuit of a population of designs. Values are arrays of shape (designs,) or scalars."""
 
-    def __init__(self, nodes: list[str], designs: int, drive: str = "inp", grounds: tuple = ()):
-        self.grounds = GROUND_NAMES + tuple(grounds)
+    def __init__(self, nodes: list[str], designs: int, drive: str | tuple[str, ...] = "inp", grounds: tuple = ()):
+        # `drive` names the node(s) the AC source moves together (both inputs for common mode, vdd for
+        # supply rejection); every other listed node and the supplies are AC ground.
+        self.drives = (drive,) if isinstance(drive, str) else tuple(drive)
+        self.grounds = tuple(g for g in GROUND_NAMES + tuple(grounds) if g not in self.drives)
         self.nodes = list(nodes)
         self.designs = designs
         self.drive = drive
@@ -39,10 +42,10 @@ class Circuit:
         self.C = np.zeros((designs, size, size))
 
     def _idx(self, name: str) -> int | None:
+        if name in self.drives:
+            return len(self.nodes)
         if name in self.grounds:
             return None
-        if name == self.drive:
-            return len(self.nodes)
         return self._index[name]
 
     def _stamp(self, matrix, rows: tuple, cols: tuple, value) -> None:
@@ -118,7 +121,7 @@ class Circuit:
 
     def subset(self, rows: np.ndarray) -> "Circuit":
         """The same circuit for the designs at `rows` only."""
-        part = Circuit(self.nodes, len(rows), self.drive, self.grounds[len(GROUND_NAMES):])
+        part = Circuit(self.nodes, len(rows), self.drive, self.grounds)
         part.G, part.C = self.G[rows].copy(), self.C[rows].copy()
         return part
 

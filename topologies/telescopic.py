@@ -58,29 +58,37 @@ class TelescopicCascode:
         vbp = vdd - diode_vgs(tech, "p", w_bp, l_cp, i_gen)
         vs, xd, i5 = zero + vcm - 0.6, vd_in, x["i_tail"]
         pa, mirc = vp_top, vdd - vsg_top
-        for _ in range(5):
+        xb, pb, i1, i2 = xd, pa, half, half
+        for _ in range(12):
             _, i5 = bias.source(tech, "tail_source", "tail", x["i_tail"], np.maximum(vs, 1e-3))
-            i1 = i5 / 2
             vgs1 = tech.vgs_for_current("n", w_in, l_in, i1, np.maximum(xd - vs, 1e-3), vs)
             vs = vcm - vgs1
-            xd = vbn - tech.vgs_for_current("n", w_cn, l_cn, i1, np.maximum(vcm - xd, 1e-3), xd)
+            xd = vbn - tech.vgs_for_current("n", w_cn, l_cn, i1, np.maximum(mirc - xd, 1e-3), xd)
             vsg_t = tech.vgs_for_current("p", w_top, l_top, i1, np.maximum(vdd - pa, 1e-3), zero)
             mirc = vdd - vsg_t
             pa = vbp + tech.vgs_for_current("p", w_cp, l_cp, i1, np.maximum(pa - mirc, 1e-3), vdd - pa)
-        vsd_right = pa - vcm   # the output sits at the common-mode level; the right side mirrors the left
+            # Output side, the output held at the common mode by the loop: the mirror copy sets the
+            # branch current and the input pair's split (an input offset) follows it.
+            i_top_b = tech.current("p", w_top, l_top, vsg_t, np.maximum(vdd - pb, 1e-3), zero)
+            pb = vbp + tech.vgs_for_current("p", w_cp, l_cp, i_top_b, np.maximum(pb - vcm, 1e-3), vdd - pb)
+            xb = vbn - tech.vgs_for_current("n", w_cn, l_cn, i_top_b, np.maximum(vcm - xb, 1e-3), xb)
+            i2 = 0.5 * i2 + 0.5 * np.clip(i_top_b, 1e-3 * i5, (1 - 1e-3) * i5)
+            i1 = i5 - i2
+        vgs2 = tech.vgs_for_current("n", w_in, l_in, i2, np.maximum(xb - vs, 1e-3), vs)
+        vsd_right = pb - vcm
 
         def dev(role, pol, nodes, w, l, vgs, vds, vsb):
             return device(tech, role, pol, nodes, w, l, vgs, vds, vsb)
 
         devices = [
             dev("input_pair_a", "n", ("xa", "inp", "tail", "vss"), w_in, l_in, vgs1, xd - vs, vs),
-            dev("input_pair_b", "n", ("xb", "inn", "tail", "vss"), w_in, l_in, vgs1, xd - vs, vs),
+            dev("input_pair_b", "n", ("xb", "inn", "tail", "vss"), w_in, l_in, vgs2, xb - vs, vs),
             dev("cascode_n_a", "n", ("mirc", "vbn", "xa", "vss"), w_cn, l_cn, vbn - xd, mirc - xd, xd),
-            dev("cascode_n_b", "n", ("out", "vbn", "xb", "vss"), w_cn, l_cn, vbn - xd, vcm - xd, xd),
+            dev("cascode_n_b", "n", ("out", "vbn", "xb", "vss"), w_cn, l_cn, vbn - xb, vcm - xb, xb),
             dev("mirror_top_a", "p", ("pa", "mirc", "vdd", "vdd"), w_top, l_top, vsg_t, vdd - pa, zero),
-            dev("mirror_top_b", "p", ("pb", "mirc", "vdd", "vdd"), w_top, l_top, vsg_t, vdd - pa, zero),
+            dev("mirror_top_b", "p", ("pb", "mirc", "vdd", "vdd"), w_top, l_top, vsg_t, vdd - pb, zero),
             dev("cascode_p_a", "p", ("mirc", "vbp", "pa", "vdd"), w_cp, l_cp, pa - vbp, pa - mirc, vdd - pa),
-            dev("cascode_p_b", "p", ("out", "vbp", "pb", "vdd"), w_cp, l_cp, pa - vbp, vsd_right, vdd - pa),
+            dev("cascode_p_b", "p", ("out", "vbp", "pb", "vdd"), w_cp, l_cp, pb - vbp, vsd_right, vdd - pb),
         ]
         tail, _ = bias.source(tech, "tail_source", "tail", x["i_tail"], vs)
         devices += [
@@ -98,11 +106,11 @@ class TelescopicCascode:
         gm_in, gm_top = op["input_pair_a"].op.gm, op["mirror_top_a"].op.gm
         metrics = {
             "slew_v_per_us": i5 / cond.c_load * 1e-6,
-            "out_high_v": pa - op["cascode_p_b"].op.vdsat,
-            "out_low_v": xd + op["cascode_n_b"].op.vdsat,
+            "out_high_v": pb - op["cascode_p_b"].op.vdsat,
+            "out_low_v": xb + op["cascode_n_b"].op.vdsat,
             "cm_low_v": tail.op.vdsat + vgs1,
             "cm_high_v": xd + op["input_pair_a"].op.vth,
-            "offset_sys_v": zero,
+            "offset_sys_v": vgs2 - vgs1,
             "offset_sigma_v": pair_offset_sigma(tech, w_in, l_in, w_top, l_top, gm_in, gm_top),
             "noise_thermal_v_rthz": pair_thermal_noise(tech, gm_in, gm_top),
         }
