@@ -191,6 +191,8 @@ def _constraints(spec: dict, cm_range: tuple[float, float]) -> tuple[Constraint,
     margin = spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)
     out.append(Constraint("saturation_margin", "sat_min_v", "min", margin, 0.1, "V"))
     out.append(Constraint("min_width", "min_width_ratio", "min", 1.0, 1.0, "x w_min"))
+    # An amplifier whose open loop has right-half-plane poles is unstable whatever its phase margin says.
+    out.append(Constraint("open_loop_stable", "rhp_poles", "max", 0.0, 1.0, "poles"))
     # The input common-mode range must lie inside what the amplifier accepts.
     out.append(Constraint("input_cm_low", "cm_low_v", "max", cm_range[0], 0.1, "V"))
     out.append(Constraint("input_cm_high", "cm_high_v", "min", cm_range[1], 0.1, "V"))

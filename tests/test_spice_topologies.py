@@ -48,11 +48,7 @@ def comparison(request, tmp_path_factory):
 
 @pytest.mark.spice
 @pytest.mark.parametrize("name", NAMES)
-def test_front_designs_of_every_topology_match_ngspice(comparison, name, tmp_path, request):
-    if name == "folded_cascode" and "sky130" in str(comparison):
-        # Known and open: one folded-cascode design whose mirror pole-zero doublet sits near the unity-gain
-        # frequency reads 87.6 deg against BSIM4's 96.1 deg. Strict, so a fix shows up as a failure here.
-        request.applymarker(pytest.mark.xfail(strict=True, reason="folded cascode doublet phase on BSIM4"))
+def test_front_designs_of_every_topology_match_ngspice(comparison, name, tmp_path):
     front = pd.read_csv(comparison / "front.csv")
     mine = front[front["topology"] == name].reset_index(drop=True)
     assert len(mine) >= 3, f"{name}: only {len(mine)} front designs"

@@ -56,6 +56,7 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         "gbw_hz": loop.gbw,
         "phase_margin_deg": loop.phase_margin,
         "gain_margin_db": loop.gain_margin,
+        "rhp_poles": loop.rhp_poles,
         # Low-frequency rejection ratios of the ideal (unmismatched) circuit.
         "cmrr_db": cmrr,
         "psrr_db": psrr,

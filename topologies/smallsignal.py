@@ -136,6 +136,7 @@ class LoopMetrics:
     gbw: np.ndarray               # unity-gain frequency, Hz (0 where |A(0)| <= 1)
     phase_margin: np.ndarray      # deg (-inf where there is no unity-gain crossing)
     gain_margin: np.ndarray       # dB (inf where the phase never reaches -180 deg)
+    rhp_poles: np.ndarray | None = None   # open-loop poles in the right half plane (an unstable amplifier)
 
 
 class Modal:
@@ -201,6 +202,8 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float 
         return _blank(result, broken)
     with np.errstate(all="ignore"):
         result = _crossings(modal.dc.real, modal.response, *args)
+        # Pole s = -1/lam lies in the right half plane when Re(lam) < 0 (lam = 0: a pole at infinity).
+        result.rhp_poles = (modal.lam.real < -1e-9 * np.abs(modal.lam)).sum(axis=1).astype(float)
         probe = np.where(result.gbw > 0, result.gbw, f_lo)[:, None]
         direct = circuit.response(output, probe)[:, 0]
         fast = modal.response(probe)[:, 0]
@@ -214,7 +217,9 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float 
 
 
 def _blank(result: LoopMetrics, rows: np.ndarray) -> LoopMetrics:
-    for field in ("gain", "gbw", "phase_margin", "gain_margin"):
+    if result.rhp_poles is None:
+        result.rhp_poles = np.zeros(len(result.gain))
+    for field in ("gain", "gbw", "phase_margin", "gain_margin", "rhp_poles"):
         getattr(result, field)[rows] = np.nan
     return result
 
@@ -258,6 +263,10 @@ def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine
     phase_u = ref + np.angle(h_u * np.exp(-1j * ref))
     pm = np.where(has_ugf, 180.0 + np.degrees(phase_u), -np.inf)
     gbw = np.where(has_ugf, f_u, 0.0)
+    # A loop gain that crosses unity more than once, or whose phase at the crossing leads (margin above
+    # 180 deg), has no single phase margin a designer can trust: it reads NaN and fails the constraint.
+    crossings = (np.diff(below.astype(np.int8), axis=1) != 0).sum(axis=1)
+    pm = np.where((crossings > 1) | (pm > 180.0), np.nan, pm)
 
     beyond = phase <= -np.pi
     has_180 = beyond.any(axis=1) & ~beyond[:, 0]
