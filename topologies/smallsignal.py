@@ -177,7 +177,7 @@ MODAL_TOLERANCE = 1e-7
 
 
 def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float = 1e11,
-                 per_decade: int = 3, refine: int = 6) -> LoopMetrics:
+                 per_decade: int = 8, refine: int = 6) -> LoopMetrics:
     """DC gain, GBW, phase and gain margins of the amplifier used as a unity-gain follower.
 
     Fast path: the modal form, checked design by design against one direct solve at the unity-gain
@@ -227,8 +227,8 @@ def _blank(result: LoopMetrics, rows: np.ndarray) -> LoopMetrics:
 def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine: int) -> LoopMetrics:
     """DC gain, GBW, phase and gain margins of the amplifier used as a unity-gain follower.
 
-    A coarse log grid finds the crossings: at 3 points a decade one real pole turns the phase by at most
-    21.4 deg a step, so the unwrap follows up to eight coincident poles. The grid starts at 1 mHz, below
+    A log grid finds the crossings: at 8 points a decade one real pole turns the phase by at most 8 deg a
+    step, so the unwrap follows clusters of poles and all but very sharp resonances and doublets. The grid starts at 1 mHz, below
     the second pole of any amplifier worth reporting, so the phase there is within half a turn of its
     true value. `refine` regula-falsi steps on log|A| vs log f then pin the unity-gain frequency to well
     below 0.1 %.
