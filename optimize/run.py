@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -85,20 +86,33 @@ def write_netlists(folder: Path, study: Study, tech, front: TopologyFront) -> No
 
 
 def run_study(study_path: Path, out: Path, seed: int | None = None,
-              progress_factory: Callable[[str, int], Progress] | None = None) -> dict:
+              progress_factory: Callable[[str, int], Progress] | None = None, workers: int | None = None) -> dict:
+    """Run a study; `workers` processes search topologies side by side (default: one per core)."""
     started = time.perf_counter()
     study = load_study(study_path, topologies.available())
     if seed is not None:
         study = Study(**{**study.__dict__, "seed": seed})
     tech = load(study.technology, study.corner)
     fronts, misses = [], {}
+    workers = workers or min(len(study.topologies), os.cpu_count() or 1)
+    if workers > 1:
+        from .parallel import search_all
+
+        outcomes = search_all(study, progress_factory, workers)
+    else:
+        outcomes = {}
+        for name in study.topologies:
+            progress = progress_factory(name, study.generations) if progress_factory else None
+            try:
+                outcomes[name] = search_topology(study, tech, name, progress)
+            except NoFeasibleDesign as missed:
+                outcomes[name] = str(missed)
     for name in study.topologies:
-        progress = progress_factory(name, study.generations) if progress_factory else None
-        try:
-            fronts.append(search_topology(study, tech, name, progress))
-        except NoFeasibleDesign as missed:
-            # One topology that cannot meet the spec is an answer too; the study goes on without it.
-            misses[name] = str(missed)
+        # One topology that cannot meet the spec is an answer too; the study goes on without it.
+        if isinstance(outcomes[name], str):
+            misses[name] = outcomes[name]
+        else:
+            fronts.append(outcomes[name])
     if not fronts:
         raise NoFeasibleDesign("; ".join(misses.values()))
     table = pd.concat([f.table for f in fronts], ignore_index=True).copy()

@@ -45,3 +45,14 @@ def test_front_csv_columns(demo_run):
     margins = front[[c for c in front.columns if c.startswith("margin_")]]
     assert (margins.to_numpy() >= -1e-9).all()  # every front design meets the spec
     assert len(front) >= 5
+
+
+def test_parallel_search_gives_the_serial_front(tmp_path):
+    """Topologies searched in separate processes give the very same front as one after the other."""
+    study = tmp_path / "two.toml"
+    text = DEMO.read_text().replace("population = 100", "population = 24").replace("generations = 60",
+                                                                                    "generations = 6")
+    study.write_text(text)
+    run_study(study, tmp_path / "serial", workers=1)
+    run_study(study, tmp_path / "parallel", workers=2)
+    assert (tmp_path / "serial" / "front.csv").read_bytes() == (tmp_path / "parallel" / "front.csv").read_bytes()
