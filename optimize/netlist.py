@@ -46,6 +46,7 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         f"* ampfront testbench for {name}: open-loop gain, GBW, phase margin and supply current",
         *model_lines(build, i, tech),
         f".include {subckt_file}",
+        f".temp {tech.temperature - 273.15:g}",
         f"Vsupply vdd 0 {cond.vdd:.6g}",
         "Vground vss 0 0",
         f"Vcm cm 0 {cond.v_cm:.6g}",
