@@ -32,3 +32,27 @@ def test_netlists_use_the_real_device_models(demo_run):
     tb = sorted((demo_run / "netlists").glob("*_tb.sp"))[0].read_text()
     assert "models_fet.spice" in tb
     assert "ngbehavior=hsa" in (demo_run / "netlists" / ".spiceinit").read_text()
+
+
+@pytest.mark.spice
+@pytest.mark.parametrize("corner", ["ss", "ff"])
+def test_corner_designs_match_bsim4_at_their_temperature(corner, tmp_path):
+    """The ss (125 degC) and ff (-40 degC) tables against the same corner's models, simulated at the
+    corner's temperature (reference: SKY130 BSIM4 models in ngspice, bounds as above)."""
+    from optimize.run import run_study
+
+    from .conftest import DEMO
+
+    text = (DEMO.read_text().replace('technology = "sky130"', f'technology = "sky130"\ncorner = "{corner}"')
+            .replace("population = 100", "population = 40").replace("generations = 60", "generations = 15"))
+    text = text.replace('topologies = ["simple_ota", "telescopic_cascode", "folded_cascode", "two_stage_miller"]',
+                        'topologies = ["two_stage_miller"]')
+    (tmp_path / "corner.toml").write_text(text)
+    run_study(tmp_path / "corner.toml", tmp_path / "out")
+    table = check_folder(tmp_path / "out", 3)
+    for column, (kind, bound) in BOUNDS["gm_id_tables"].items():
+        if column == "cmrr_db":
+            continue  # see DEVELOPERS.md: the ideal circuit's CMRR is not held to the bound on SKY130 corners
+        model, spice = table[f"{column}_model"], table[f"{column}_spice"]
+        error = (spice - model).abs() if kind == "abs" else ((spice - model) / model).abs()
+        assert (error <= bound).all(), (corner, column, list(zip(table["design"], model, spice)))
