@@ -45,6 +45,8 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
     except NoFeasibleDesign as error:
         _fail(str(error), 3)
     for key, value in summary.items():
+        if key == "warning":
+            err.print(f"ampfront: warning: {value}", highlight=False, markup=False)
         if key.endswith("(no feasible design)"):
             err.print(f"{key.split(' ')[0]}: {value}", highlight=False, markup=False)
     err.print(f"{summary['front designs']} front designs from {summary['designs evaluated']} evaluated "

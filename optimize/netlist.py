@@ -18,9 +18,9 @@ def _at(values, i: int) -> float:
     return float(np.asarray(values).reshape(-1)[i] if np.ndim(values) else values)
 
 
-def subckt(build: Build, i: int, tech: Technology, name: str, title: str = "") -> str:
+def subckt(build: Build, i: int, tech: Technology, name: str, title: str = "", notes: str = "") -> str:
     lines = [f"* {title or name}: sized by ampfront (pre-layout estimate)",
-             f".subckt {name} {' '.join(PORTS)}"]
+             *([notes] if notes else []), f".subckt {name} {' '.join(PORTS)}"]
     for d in build.devices:
         lines.append(tech.spice_instance(d.role, d.polarity, d.nodes, _at(d.w, i), _at(d.l, i)))
     for e in build.elements:

@@ -14,7 +14,7 @@ import pandas as pd
 import topologies
 
 from . import netlist, report
-from .export import front_table, staged_directory, versions, write_json
+from .export import device_table, front_table, staged_directory, versions, write_json
 from .problem import DesignProblem, objective_matrix
 from .search import Progress, run_search
 from .study import Study, load_study
@@ -29,6 +29,7 @@ class NoFeasibleDesign(Exception):
 class TopologyFront:
     name: str
     table: pd.DataFrame
+    build: object           # the front designs' Build, reused for the netlists
     evaluations: int
     history: list
 
@@ -68,19 +69,20 @@ def search_topology(study: Study, tech, name: str, progress: Progress | None) ->
     metrics, build = topologies.evaluate(topology, x, tech, study.conditions)
     names = [f"{topology.prefix}_{i + 1:03d}" for i in range(len(result.X))]
     table = front_table(name, names, metrics, build, x, study.constraints)
-    return TopologyFront(name, table, result.evaluations, result.history)
+    return TopologyFront(name, table, build, result.evaluations, result.history)
 
 
 def write_netlists(folder: Path, study: Study, tech, front: TopologyFront) -> None:
     topology = topologies.available()[front.name]
-    x = {c[2:]: front.table[c].to_numpy() for c in front.table if c.startswith("x_")}
-    _, build = topologies.evaluate(topology, x, tech, study.conditions)
+    build = front.build
     folder.mkdir(exist_ok=True)
     if tech.spice_init:
         # ngspice reads .spiceinit from the folder it starts in: the testbenches run as they are from here.
         (folder / ".spiceinit").write_text("\n".join(tech.spice_init) + "\n")
     for i, design in enumerate(front.table["design"]):
-        (folder / f"{design}.sp").write_text(netlist.subckt(build, i, tech, design, topology.title))
+        # The operating point rides along as comments, so the netlist alone says how each device is biased.
+        op = "\n".join("* " + line for line in device_table(build, i).to_string(index=False).splitlines())
+        (folder / f"{design}.sp").write_text(netlist.subckt(build, i, tech, design, topology.title, op))
         (folder / f"{design}_tb.sp").write_text(
             netlist.testbench(build, i, tech, study.conditions, design, f"{design}.sp"))
 
@@ -123,6 +125,9 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
                "generations": study.generations, "designs evaluated": evaluations,
                "front designs": len(table), "wall time": f"{wall:.1f} s"}
     summary.update({f"{name} (no feasible design)": text.split(": ", 1)[1] for name, text in misses.items()})
+    missing_models = [line[2:] for line in getattr(tech, "spice_library", ()) if "not found" in line]
+    if missing_models:
+        summary["warning"] = f"testbenches cannot run yet: {missing_models[0]}"
     with staged_directory(out) as stage:
         table.to_csv(stage / "front.csv", index=False, float_format="%.9g")
         (stage / "report.html").write_text(report.render(table, study, tech.name, summary), encoding="utf-8")

@@ -10,12 +10,7 @@ import numpy as np
 
 from .base import Build, Conditions, Element, Variable, gm_id_variable, length_variable, snap_length
 from .process.base import Technology, diode_vgs
-from .stages import BiasBranch, device, pair_thermal_noise, pair_variables
-
-
-def _mismatch(tech: Technology, polarity, w, l):
-    """1-sigma threshold difference of a matched pair (Pelgrom)."""
-    return np.sqrt(2) * tech.avt(polarity) / np.sqrt(w * l)
+from .stages import BiasBranch, cascode_variables, device, pair_mismatch, pair_thermal_noise, pair_variables
 
 
 class FoldedCascode:
@@ -28,12 +23,7 @@ class FoldedCascode:
             Variable("fold_ratio", 0.3, 2.0, "1", doc="cascode-branch current / half the tail current"),
             gm_id_variable("gmid_src", tech, "gm/ID of the pMOS folding sources"),
             length_variable("l_src", tech, "pMOS folding source length"),
-            gm_id_variable("gmid_casp", tech, "gm/ID of the pMOS cascodes"),
-            length_variable("l_casp", tech, "pMOS cascode length"),
-            gm_id_variable("gmid_casn", tech, "gm/ID of the nMOS cascodes"),
-            length_variable("l_casn", tech, "nMOS cascode length"),
-            Variable("headroom", 0.03, 0.3, "V", doc="VDS above Vdsat given to the sources and mirror bottom"),
-        )
+        ) + cascode_variables(tech, "VDS above Vdsat given to the sources and mirror bottom")
 
     def build(self, x, tech: Technology, cond: Conditions) -> Build:
         vdd, vcm = cond.vdd, cond.v_cm
@@ -127,9 +117,9 @@ class FoldedCascode:
         ]
         op = {d.role: d for d in devices}
         gm_in, gm_src, gm_mb = (op[r].op.gm for r in ("input_pair_a", "fold_source_a", "mirror_bottom_a"))
-        offset = np.sqrt(_mismatch(tech, "n", w_in, l_in) ** 2
-                         + (gm_src / gm_in * _mismatch(tech, "p", w_src, l_src)) ** 2
-                         + (gm_mb / gm_in * _mismatch(tech, "n", w_mb, l_mb)) ** 2)
+        offset = np.sqrt(pair_mismatch(tech, "n", w_in, l_in) ** 2
+                         + (gm_src / gm_in * pair_mismatch(tech, "p", w_src, l_src)) ** 2
+                         + (gm_mb / gm_in * pair_mismatch(tech, "n", w_mb, l_mb)) ** 2)
         metrics = {
             "slew_v_per_us": np.minimum(i5, i_src) / cond.c_load * 1e-6,
             "out_high_v": fb - op["cascode_p_b"].op.vdsat,

@@ -165,11 +165,6 @@ class Modal:
         s = s[:, :, None]
         return ((self.r0[:, None, :] + s * self.r1[:, None, :]) / (1.0 + s * self.lam[:, None, :])).sum(axis=2)
 
-    def poles_hz(self) -> np.ndarray:
-        """Finite poles in Hz (complex; NaN where the mode sits at infinity), one row per design."""
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return np.where(self.lam != 0, -1.0 / (2 * np.pi * self.lam), np.nan)
-
 
 # Designs whose modal response differs from a direct solve by more than this at the unity-gain frequency
 # (near-defective eigenvectors) are recomputed by direct solves over the whole grid.

@@ -28,17 +28,32 @@ def pair_variables(tech: Technology) -> tuple[Variable, ...]:
     )
 
 
+def cascode_variables(tech: Technology, headroom_doc: str) -> tuple[Variable, ...]:
+    """Design variables of an nMOS and a pMOS cascode pair, and the headroom they leave the devices below."""
+    return (
+        gm_id_variable("gmid_casn", tech, "gm/ID of the nMOS cascodes"),
+        length_variable("l_casn", tech, "nMOS cascode length"),
+        gm_id_variable("gmid_casp", tech, "gm/ID of the pMOS cascodes"),
+        length_variable("l_casp", tech, "pMOS cascode length"),
+        Variable("headroom", 0.03, 0.3, "V", doc=headroom_doc),
+    )
+
+
 # Channel thermal-noise factor of a long-channel device in saturation (common practice: 2/3).
 GAMMA_THERMAL = 2.0 / 3.0
 BOLTZMANN = 1.380649e-23
 
 
+def pair_mismatch(tech: Technology, polarity, w, l):
+    """1-sigma threshold difference of a matched pair (Pelgrom, 1989): sqrt(2) avt / sqrt(W L)."""
+    return np.sqrt(2) * tech.avt(polarity) / np.sqrt(w * l)
+
+
 def pair_offset_sigma(tech: Technology, w_in, l_in, w_load, l_load, gm_in, gm_load):
-    """Input-referred 1-sigma offset of a mirror-loaded pair from threshold mismatch (Pelgrom, 1989): each
-    matched pair contributes sqrt(2) avt / sqrt(W L); the load's is divided by the pair's gain gm_in/gm_load."""
-    pair = np.sqrt(2) * tech.avt("n") / np.sqrt(w_in * l_in)
-    load = np.sqrt(2) * tech.avt("p") / np.sqrt(w_load * l_load) * gm_load / gm_in
-    return np.sqrt(pair**2 + load**2)
+    """Input-referred 1-sigma offset of a mirror-loaded pair from threshold mismatch: the input pair's own,
+    and the load pair's divided by the pair's gain gm_in/gm_load."""
+    load = pair_mismatch(tech, "p", w_load, l_load) * gm_load / gm_in
+    return np.sqrt(pair_mismatch(tech, "n", w_in, l_in) ** 2 + load**2)
 
 
 def pair_thermal_noise(tech: Technology, gm_in, gm_load):

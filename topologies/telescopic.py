@@ -8,9 +8,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from .base import Build, Conditions, Element, Variable, gm_id_variable, length_variable, snap_length
+from .base import Build, Conditions, Element, Variable, snap_length
 from .process.base import Technology, diode_vgs
-from .stages import BiasBranch, device, pair_offset_sigma, pair_thermal_noise, pair_variables
+from .stages import BiasBranch, cascode_variables, device, pair_offset_sigma, pair_thermal_noise, pair_variables
 
 
 class TelescopicCascode:
@@ -19,13 +19,7 @@ class TelescopicCascode:
     prefix = "tel"
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
-        return pair_variables(tech) + (
-            gm_id_variable("gmid_casn", tech, "gm/ID of the nMOS cascodes"),
-            length_variable("l_casn", tech, "nMOS cascode length"),
-            gm_id_variable("gmid_casp", tech, "gm/ID of the pMOS cascodes"),
-            length_variable("l_casp", tech, "pMOS cascode length"),
-            Variable("headroom", 0.03, 0.3, "V", doc="VDS above Vdsat given to the input pair and mirror top"),
-        )
+        return pair_variables(tech) + cascode_variables(tech, "VDS above Vdsat given to the input pair and mirror top")
 
     def build(self, x, tech: Technology, cond: Conditions) -> Build:
         vdd, vcm = cond.vdd, cond.v_cm

@@ -36,14 +36,6 @@ class OperatingPoint:
     partials: dict[str, np.ndarray] | None = None
 
 
-@dataclass(frozen=True)
-class Geometry:
-    """Layout-independent sizes of a device group: W and L in m, plus the junction areas the netlist needs."""
-
-    w: np.ndarray
-    l: np.ndarray
-
-
 @runtime_checkable
 class Technology(Protocol):
     """A process as ampfront sees it: device physics, a few limits, and how to write it for SPICE."""
