@@ -39,7 +39,9 @@ def model_lines(build: Build, i: int, tech: Technology) -> list[str]:
 def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: str, subckt_file: str) -> str:
     """Open-loop testbench: DC loop closed through a large inductor (unity-gain follower at DC), the
     inverting input held at AC ground by a large capacitor, an AC source on the non-inverting input."""
-    rl = (f"Rload out cm {cond.r_load:.6g}" if np.isfinite(cond.r_load)
+    # The load returns to its own copy of the common-mode level, so the rejection runs (which move `cm`)
+    # do not drive the output through it.
+    rl = (f"Rload out term {cond.r_load:.6g}\nVterm term 0 {cond.v_cm:.6g}" if np.isfinite(cond.r_load)
           else "* no load resistance in the spec")
     tag = RESULT_TAG
     return "\n".join([
@@ -74,12 +76,14 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         f"echo {tag} gain_db $&gain_db",
         f"echo {tag} gbw_hz $&gbw_hz",
         f"echo {tag} phase_margin_deg $&phase_margin",
-        # Input-referred noise density at 100 Hz (index 5 of 10, 15.8, 25, 39.8, 63, 100 Hz): with the DC
-        # loop closed only through the inductor this is the open-loop amplifier's own noise.
-        "noise v(out) vin dec 5 10 100",
+        # Input-referred noise density at 1 Hz (flicker) and 100 Hz (index 10 of a 5-per-decade sweep): with
+        # the DC loop closed only through the inductor this is the open-loop amplifier's own noise.
+        "noise v(out) vin dec 5 1 100",
         "setplot noise1",
-        "let noise_nv = inoise_spectrum[5] * 1e9",  # ngspice reports V/sqrt(Hz)
-        f"echo {tag} noise_nv_rthz $&noise_nv",
+        "let noise_1hz_nv = inoise_spectrum[0] * 1e9",  # ngspice reports V/sqrt(Hz)
+        "let noise_100hz_nv = inoise_spectrum[10] * 1e9",
+        f"echo {tag} noise_1hz_nv_rthz $&noise_1hz_nv",
+        f"echo {tag} noise_100hz_nv_rthz $&noise_100hz_nv",
         # Common-mode and supply gains at 0.1 Hz: the AC source moved to the common-mode level, then to
         # the supply. Rejection ratios are the open-loop gain over these.
         "alter vin ac = 0",

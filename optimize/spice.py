@@ -11,7 +11,8 @@ from .netlist import RESULT_TAG
 # What a testbench prints, in the units it prints them, and the front.csv column each checks.
 MEASURED = {"gain_db": ("gain_db", 1.0), "gbw_hz": ("gbw_hz", 1.0),
             "phase_margin_deg": ("phase_margin_deg", 1.0), "supply_current_ua": ("supply_current_a", 1e-6),
-            "noise_nv_rthz": ("noise_thermal_v_rthz", 1e-9), "cm_gain_db": ("cm_gain_db", 1.0),
+            "noise_1hz_nv_rthz": ("noise_1hz_v_rthz", 1e-9), "noise_100hz_nv_rthz": ("noise_100hz_v_rthz", 1e-9),
+            "cm_gain_db": ("cm_gain_db", 1.0),
             "supply_gain_db": ("supply_gain_db", 1.0)}
 
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import json
 from pathlib import Path
 
 from topologies.process import DATA_DIR, LevelOneDevice, SquareLaw, Technology
@@ -26,6 +27,7 @@ _LEVEL_ONE = {
     "mj": Field("1", True), "cjsw": Field("F/m", True, positive=False), "mjsw": Field("1", True),
     "pb": Field("V", True),
     "avt": Field("V*m"),
+    "kf": Field("1", positive=False),
 }
 
 
@@ -54,7 +56,7 @@ _TABLE_TOP = {
     "library": Field("str", True), "default_corner": Field("str", True),
 }
 _TABLE_CORNER = {"temperature": Field("degC", True, positive=False), "nmos": Field("str", True),
-                 "pmos": Field("str", True)}
+                 "pmos": Field("str", True), "flicker": Field("str")}
 
 
 def corners(path: Path) -> list[str]:
@@ -109,6 +111,15 @@ def _load_tables(path: Path, raw: dict, corner: str | None) -> Technology:
         if not file.is_file():
             raise InputError(source, f"corners.{corner}.{polarity}", "an existing table file (.npz)", entry[polarity])
         devices[polarity] = DeviceTable(file)
+    flicker = {"n": None, "p": None}
+    if "flicker" in entry:
+        file = path.parent / entry["flicker"]
+        try:
+            measured = json.loads(file.read_text())
+            flicker = {p: {k: measured[p][k] for k in ("l_um", "gm_id", "k_v2m2", "exponent")} for p in "np"}
+        except (OSError, ValueError, KeyError, TypeError):
+            raise InputError(source, f"corners.{corner}.flicker", "a flicker file written by ampfront characterize",
+                             entry["flicker"]) from None
     if top["library"] != "sky130":
         raise InputError(source, "library", "sky130", top["library"])
     try:
@@ -123,7 +134,7 @@ def _load_tables(path: Path, raw: dict, corner: str | None) -> Technology:
         name=f"{top['name']}-{corner}", description=top.get("description", ""), supply=top["supply"],
         temperature=entry["temperature"] + 273.15, w_min=top["w_min"], cap_density=top["cap_density"],
         nmos=devices["nmos"], pmos=devices["pmos"], corner=corner, spice_library=library, spice_init=init,
-        avt_n=avt["nmos"], avt_p=avt["pmos"],
+        avt_n=avt["nmos"], avt_p=avt["pmos"], flicker_n=flicker["n"], flicker_p=flicker["p"],
     )
 
 
@@ -151,7 +162,7 @@ def file_hash(path: Path, corner: str | None = None) -> str:
     raw = read_toml(path)
     if raw.get("kind") == "gm_id_tables":
         entry = raw.get("corners", {}).get(corner or raw.get("default_corner"), {})
-        for polarity in ("nmos", "pmos"):
-            if polarity in entry:
-                digest.update((path.parent / entry[polarity]).read_bytes())
+        for key in ("nmos", "pmos", "flicker"):
+            if key in entry:
+                digest.update((path.parent / entry[key]).read_bytes())
     return digest.hexdigest()

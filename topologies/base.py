@@ -39,6 +39,15 @@ class Conditions:
     c_load: float           # F
     r_load: float           # Ohm, terminated at the common-mode level; inf for none
     v_cm: float             # input (and output) common-mode level the amplifier is biased at, V
+    # DC level of the output node when something other than the feedback loop sets it (a core driving an
+    # output stage sits at that stage's input level, one value per design); None means v_cm.
+    v_out: np.ndarray | float | None = None
+    i_out: np.ndarray | float = 0.0   # DC current pushed into the output node by what follows it, A
+    noise_band: tuple[float, float] = (1.0, 1e6)   # Hz, the band input-referred RMS noise integrates over
+
+    @property
+    def out_level(self):
+        return self.v_cm if self.v_out is None else self.v_out
 
 
 @dataclass
@@ -82,6 +91,8 @@ class Topology(Protocol):
     name: str       # registry key, snake_case
     title: str      # human-readable name for reports
     prefix: str     # short prefix of design identifiers
+    # Optional: `single_stage = True` marks a core whose only high-impedance node is `out`, so an output
+    # stage may follow it (see topologies.compose); such a core must honour `Conditions.out_level`.
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]: ...
 

@@ -6,6 +6,7 @@ import numpy as np
 
 from .base import Build, Conditions, Topology
 from .process.base import Technology
+from .noise import noise_metrics
 from .smallsignal import Circuit, loop_metrics
 
 
@@ -43,7 +44,9 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
     # Dead or off-table devices give inf/NaN for their designs only; the search reads those as violations.
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         build = topology.build(x, tech, cond)
-        loop = loop_metrics(small_signal(build, cond), "out")
+        circuit = small_signal(build, cond)
+        loop = loop_metrics(circuit, "out")
+        noise = noise_metrics(circuit, build, tech, loop.gain, cond.noise_band)
         a_cm = small_signal(build, cond, "common_mode").dc_gain("out")
         a_dd = small_signal(build, cond, "supply").dc_gain("out")
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
@@ -66,6 +69,7 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         "min_width_ratio": np.min([d.w / tech.w_min for d in build.devices], axis=0),
         "sat_min_v": np.min(list(sat.values()), axis=0),
         **build.metrics,
+        **noise,
         **sat,
     }
     return metrics, build

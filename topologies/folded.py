@@ -10,13 +10,14 @@ import numpy as np
 
 from .base import Build, Conditions, Element, Variable, gm_id_variable, length_variable, snap_length
 from .process.base import Technology, diode_vgs
-from .stages import BiasBranch, cascode_variables, device, pair_mismatch, pair_thermal_noise, pair_variables
+from .stages import BiasBranch, cascode_variables, device, pair_mismatch, pair_variables
 
 
 class FoldedCascode:
     name = "folded_cascode"
     title = "Folded cascode OTA"
     prefix = "fcs"
+    single_stage = True
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         return pair_variables(tech) + (
@@ -26,7 +27,7 @@ class FoldedCascode:
         ) + cascode_variables(tech, "VDS above Vdsat given to the sources and mirror bottom")
 
     def build(self, x, tech: Technology, cond: Conditions) -> Build:
-        vdd, vcm = cond.vdd, cond.v_cm
+        vdd, vcm, vout = cond.vdd, cond.v_cm, cond.out_level
         zero = np.zeros_like(x["i_tail"])
         bias = BiasBranch.sized(tech, x)
         half = x["i_tail"] / 2
@@ -73,14 +74,15 @@ class FoldedCascode:
             fa = vbp2 + tech.vgs_for_current("p", w_cp, l_cp, i_cas, np.maximum(fa - mirc, 1e-3), vdd - fa)
             mirc = tech.vgs_for_current("n", w_mb, l_mb, i_cas, np.maximum(na, 1e-3), zero)
             na = vbn - tech.vgs_for_current("n", w_cn, l_cn, i_cas, np.maximum(mirc - na, 1e-3), na)
-            # Output side, with the output held at the common mode by the loop: the mirror copy sets the
+            # Output side, held at its DC level by the loop (or the stage it drives): the mirror copy sets the
             # branch current, and the input pair's split (an input offset) balances the folding source.
             i_out = tech.current("n", w_mb, l_mb, mirc, np.maximum(nb2, 1e-3), zero)
-            nb2 = vbn - tech.vgs_for_current("n", w_cn, l_cn, i_out, np.maximum(vcm - nb2, 1e-3), nb2)
-            fb = vbp2 + tech.vgs_for_current("p", w_cp, l_cp, i_out, np.maximum(fb - vcm, 1e-3), vdd - fb)
+            nb2 = vbn - tech.vgs_for_current("n", w_cn, l_cn, i_out, np.maximum(vout - nb2, 1e-3), nb2)
+            i_cas_b = np.maximum(i_out - cond.i_out, 1e-12)
+            fb = vbp2 + tech.vgs_for_current("p", w_cp, l_cp, i_cas_b, np.maximum(fb - vout, 1e-3), vdd - fb)
             i_src_b = tech.current("p", w_src, l_src, vdd - vbp1, np.maximum(vdd - fb, 1e-3), zero)
             # Damped: the split feeds back through both folding nodes and overshoots when taken whole.
-            i2 = 0.5 * i2 + 0.5 * np.clip(i_src_b - i_out, 1e-3 * i5, (1 - 1e-3) * i5)
+            i2 = 0.5 * i2 + 0.5 * np.clip(i_src_b - i_cas_b, 1e-3 * i5, (1 - 1e-3) * i5)
             i1 = i5 - i2
         vgs2 = tech.vgs_for_current("n", w_in, l_in, i2, np.maximum(fb - vs, 1e-3), vs)
 
@@ -95,9 +97,9 @@ class FoldedCascode:
             dev("fold_source_a", "p", ("fa", "vbp1", "vdd", "vdd"), w_src, l_src, vdd - vbp1, vdd - fa, zero),
             dev("fold_source_b", "p", ("fb", "vbp1", "vdd", "vdd"), w_src, l_src, vdd - vbp1, vdd - fb, zero),
             dev("cascode_p_a", "p", ("mirc", "vbp2", "fa", "vdd"), w_cp, l_cp, vsg_cp, fa - mirc, vdd - fa),
-            dev("cascode_p_b", "p", ("out", "vbp2", "fb", "vdd"), w_cp, l_cp, fb - vbp2, fb - vcm, vdd - fb),
+            dev("cascode_p_b", "p", ("out", "vbp2", "fb", "vdd"), w_cp, l_cp, fb - vbp2, fb - vout, vdd - fb),
             dev("cascode_n_a", "n", ("mirc", "vbn", "na", "vss"), w_cn, l_cn, vgs_cn, mirc - na, na),
-            dev("cascode_n_b", "n", ("out", "vbn", "nb2", "vss"), w_cn, l_cn, vbn - nb2, vcm - nb2, nb2),
+            dev("cascode_n_b", "n", ("out", "vbn", "nb2", "vss"), w_cn, l_cn, vbn - nb2, vout - nb2, nb2),
             dev("mirror_bottom_a", "n", ("na", "mirc", "vss", "vss"), w_mb, l_mb, mirc, na, zero),
             dev("mirror_bottom_b", "n", ("nb2", "mirc", "vss", "vss"), w_mb, l_mb, mirc, nb2, zero),
         ]
@@ -128,7 +130,6 @@ class FoldedCascode:
             "cm_high_v": fa + op["input_pair_a"].op.vth,
             "offset_sys_v": vgs2 - vgs1,
             "offset_sigma_v": offset,
-            "noise_thermal_v_rthz": pair_thermal_noise(tech, gm_in, gm_src + gm_mb),
         }
         metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
         return Build(devices, elements, bias.i_ref + i_src + i_src_b + 3 * i_gen, metrics)

@@ -19,3 +19,10 @@ def two_pole_phase_margin(ratio):
     """Phase margin (deg) of a two-pole loop whose second pole sits at `ratio` times the unity-gain frequency
     (dominant pole far below): 90 - atan(1/ratio)."""
     return 90.0 - np.degrees(np.arctan(1.0 / np.asarray(ratio)))
+
+
+def pair_thermal_noise(temperature: float, gm_in, gm_load, gamma: float = 2.0 / 3.0):
+    """Input-referred white-noise density (V/sqrt(Hz)) of a mirror-loaded pair: both input devices and both
+    load devices, 4kT gamma / gm each, the load's referred through (gm_load/gm_in)^2."""
+    kt4 = 4 * 1.380649e-23 * temperature * gamma
+    return np.sqrt(2 * kt4 / gm_in * (1 + gm_load / gm_in))

@@ -5,6 +5,8 @@ from __future__ import annotations
 from importlib.metadata import entry_points
 
 from .base import Topology
+from .class_ab import ClassABOutput
+from .compose import WithOutputStage
 from .folded import FoldedCascode
 from .simple_ota import SimpleOTA
 from .telescopic import TelescopicCascode
@@ -36,4 +38,9 @@ def available() -> dict[str, Topology]:
         if topology.name in found:
             raise PluginError(f"entry point {entry.value} reuses the topology name '{topology.name}'")
         found[topology.name] = topology
+    # Every single-stage core, built-in or not, also comes with the class-AB output stage after it.
+    for core in list(found.values()):
+        if getattr(core, "single_stage", False):
+            composed = WithOutputStage(core, ClassABOutput())
+            found.setdefault(composed.name, composed)
     return found

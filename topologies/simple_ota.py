@@ -14,6 +14,7 @@ class SimpleOTA:
     name = "simple_ota"
     title = "Five-transistor OTA"
     prefix = "ota"
+    single_stage = True
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         return pair_variables(tech)
@@ -22,9 +23,9 @@ class SimpleOTA:
         vdd, vcm = cond.vdd, cond.v_cm
         bias = BiasBranch.sized(tech, x)
         pair = MirrorPair.sized(tech, x, vdd, vcm)
-        # The output is node o1; at DC the follower loop holds it at the common-mode level.
-        devices, fig = pair.solve(tech, bias, x["i_tail"], vdd, vcm, np.full_like(x["i_tail"], vcm),
-                                 inverting_after=False)
+        # The output is node o1; at DC the follower loop (or the stage it drives) sets its level.
+        devices, fig = pair.solve(tech, bias, x["i_tail"], vdd, vcm, np.zeros_like(x["i_tail"]) + cond.out_level,
+                                 inverting_after=False, i_load=cond.i_out)
         devices = [_rename_output(d) for d in devices] + [bias.diode(tech)]
         out_pair, load_out = devices[1], devices[3]
         metrics = {
@@ -36,11 +37,10 @@ class SimpleOTA:
             "cm_high_v": fig["cm_high_v"],
             "offset_sys_v": fig["offset_sys_v"],
             "offset_sigma_v": fig["offset_sigma_v"],
-            "noise_thermal_v_rthz": fig["noise_thermal_v_rthz"],
         }
         metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
         elements = [Element("I", "bias_reference", "vdd", "nb", bias.i_ref)]
-        return Build(devices, elements, bias.i_ref + fig["i_tail"], metrics)
+        return Build(devices, elements, bias.i_ref + fig["i_supply"], metrics)
 
 
 def _rename_output(d):

@@ -125,6 +125,24 @@ class Circuit:
         part.G, part.C = self.G[rows].copy(), self.C[rows].copy()
         return part
 
+    def transimpedance(self, output: str):
+        """At DC: v(output) per ampere injected into each node, for every design, by one adjoint solve
+        (G^T z = e_out). Returns a function of a node name; ground and driven nodes give 0."""
+        n = len(self.nodes)
+        unit = np.zeros((self.designs, n))
+        unit[:, self._index[output]] = 1.0
+        g = self.G[:, :n, :n]
+        broken = ~np.isfinite(g).all(axis=(1, 2))
+        if broken.any():
+            g = np.where(broken[:, None, None], np.eye(n), g)
+        z = solve_batched(np.swapaxes(g, 1, 2), unit)
+        z[broken] = np.nan
+
+        def at(node: str) -> np.ndarray:
+            i = self._idx(node)
+            return z[:, i] if i is not None and i < n else np.zeros(self.designs)
+        return at
+
     def dc_gain(self, output: str) -> np.ndarray:
         n = len(self.nodes)
         return solve_batched(self.G[:, :n, :n], -self.G[:, :n, n])[:, self._index[output]]

@@ -39,11 +39,6 @@ def cascode_variables(tech: Technology, headroom_doc: str) -> tuple[Variable, ..
     )
 
 
-# Channel thermal-noise factor of a long-channel device in saturation (common practice: 2/3).
-GAMMA_THERMAL = 2.0 / 3.0
-BOLTZMANN = 1.380649e-23
-
-
 def pair_mismatch(tech: Technology, polarity, w, l):
     """1-sigma threshold difference of a matched pair (Pelgrom, 1989): sqrt(2) avt / sqrt(W L)."""
     return np.sqrt(2) * tech.avt(polarity) / np.sqrt(w * l)
@@ -54,13 +49,6 @@ def pair_offset_sigma(tech: Technology, w_in, l_in, w_load, l_load, gm_in, gm_lo
     and the load pair's divided by the pair's gain gm_in/gm_load."""
     load = pair_mismatch(tech, "p", w_load, l_load) * gm_load / gm_in
     return np.sqrt(pair_mismatch(tech, "n", w_in, l_in) ** 2 + load**2)
-
-
-def pair_thermal_noise(tech: Technology, gm_in, gm_load):
-    """Input-referred white-noise density (V/sqrt(Hz)) of a mirror-loaded pair: both input devices and both
-    load devices, 4kT gamma / gm each, the load's referred through (gm_load/gm_in)^2."""
-    kt4 = 4 * BOLTZMANN * tech.temperature * GAMMA_THERMAL
-    return np.sqrt(2 * kt4 / gm_in * (1 + gm_load / gm_in))
 
 
 def device(tech: Technology, role, polarity, nodes, w, l, vgs, vds, vsb) -> Device:
@@ -123,11 +111,12 @@ class MirrorPair:
         return cls(w_in, l_in, w_load, l_load, vsg)
 
     def solve(self, tech: Technology, bias: BiasBranch, i_tail_target, vdd: float, vcm: float, v_o1,
-              inverting_after: bool):
+              inverting_after: bool, i_load=0.0):
         """DC operating point with node o1 held at v_o1 by whatever follows; returns devices and figures.
 
         `inverting_after`: an inverting stage follows o1, so inp drives the o1 side of the pair; otherwise
-        inp drives the diode side. Either way the amplifier is non-inverting from inp to out.
+        inp drives the diode side. Either way the amplifier is non-inverting from inp to out. `i_load` is a
+        DC current pushed into o1 from outside; the pair's split (an input offset) absorbs it.
         """
         gate_a, gate_b = ("inn", "inp") if inverting_after else ("inp", "inn")
         zero = np.zeros_like(self.w_in)
@@ -138,7 +127,7 @@ class MirrorPair:
             vsg3 = diode_vgs(tech, "p", self.w_load, self.l_load, i1)
             ratio = (tech.current("p", self.w_load, self.l_load, vsg3, vsd_out, zero)
                      / tech.current("p", self.w_load, self.l_load, vsg3, vsg3, zero))
-            i1 = i5 / (1 + ratio)
+            i1 = (i5 - i_load) / (1 + ratio)
             vgs1 = tech.vgs_for_current("n", self.w_in, self.l_in, i1, vdd - vsg3 - vs, vs)
             vs = vcm - vgs1
         i2 = i5 - i1
@@ -156,9 +145,8 @@ class MirrorPair:
         ]
         gm_in, gm_load = devices[1].op.gm, devices[3].op.gm
         figures = {
-            "i_tail": i5, "vsg_load": vsg3, "vgs_in": vgs1,
+            "i_tail": i5, "vsg_load": vsg3, "vgs_in": vgs1, "i_supply": i5 - i_load,
             "offset_sigma_v": pair_offset_sigma(tech, self.w_in, self.l_in, self.w_load, self.l_load, gm_in, gm_load),
-            "noise_thermal_v_rthz": pair_thermal_noise(tech, gm_in, gm_load),
             "cm_low_v": tail.op.vdsat + vgs1,
             "cm_high_v": vdd - vsg3 + devices[0].op.vth,
             "offset_sys_v": vgs2 - vgs1,

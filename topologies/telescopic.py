@@ -10,19 +10,20 @@ import numpy as np
 
 from .base import Build, Conditions, Element, Variable, snap_length
 from .process.base import Technology, diode_vgs
-from .stages import BiasBranch, cascode_variables, device, pair_offset_sigma, pair_thermal_noise, pair_variables
+from .stages import BiasBranch, cascode_variables, device, pair_offset_sigma, pair_variables
 
 
 class TelescopicCascode:
     name = "telescopic_cascode"
     title = "Telescopic cascode OTA"
     prefix = "tel"
+    single_stage = True
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         return pair_variables(tech) + cascode_variables(tech, "VDS above Vdsat given to the input pair and mirror top")
 
     def build(self, x, tech: Technology, cond: Conditions) -> Build:
-        vdd, vcm = cond.vdd, cond.v_cm
+        vdd, vcm, vout = cond.vdd, cond.v_cm, cond.out_level
         zero = np.zeros_like(x["i_tail"])
         bias = BiasBranch.sized(tech, x)
         half = x["i_tail"] / 2
@@ -61,15 +62,15 @@ class TelescopicCascode:
             vsg_t = tech.vgs_for_current("p", w_top, l_top, i1, np.maximum(vdd - pa, 1e-3), zero)
             mirc = vdd - vsg_t
             pa = vbp + tech.vgs_for_current("p", w_cp, l_cp, i1, np.maximum(pa - mirc, 1e-3), vdd - pa)
-            # Output side, the output held at the common mode by the loop: the mirror copy sets the
-            # branch current and the input pair's split (an input offset) follows it.
+            # Output side, held at its DC level by the loop (or by the stage it drives): the mirror copy
+            # sets the branch current and the input pair's split (an input offset) follows it.
             i_top_b = tech.current("p", w_top, l_top, vsg_t, np.maximum(vdd - pb, 1e-3), zero)
-            pb = vbp + tech.vgs_for_current("p", w_cp, l_cp, i_top_b, np.maximum(pb - vcm, 1e-3), vdd - pb)
-            xb = vbn - tech.vgs_for_current("n", w_cn, l_cn, i_top_b, np.maximum(vcm - xb, 1e-3), xb)
-            i2 = 0.5 * i2 + 0.5 * np.clip(i_top_b, 1e-3 * i5, (1 - 1e-3) * i5)
+            pb = vbp + tech.vgs_for_current("p", w_cp, l_cp, i_top_b, np.maximum(pb - vout, 1e-3), vdd - pb)
+            xb = vbn - tech.vgs_for_current("n", w_cn, l_cn, i2, np.maximum(vout - xb, 1e-3), xb)
+            i2 = 0.5 * i2 + 0.5 * np.clip(i_top_b + cond.i_out, 1e-3 * i5, (1 - 1e-3) * i5)
             i1 = i5 - i2
         vgs2 = tech.vgs_for_current("n", w_in, l_in, i2, np.maximum(xb - vs, 1e-3), vs)
-        vsd_right = pb - vcm
+        vsd_right = pb - vout
 
         def dev(role, pol, nodes, w, l, vgs, vds, vsb):
             return device(tech, role, pol, nodes, w, l, vgs, vds, vsb)
@@ -78,7 +79,7 @@ class TelescopicCascode:
             dev("input_pair_a", "n", ("xa", "inp", "tail", "vss"), w_in, l_in, vgs1, xd - vs, vs),
             dev("input_pair_b", "n", ("xb", "inn", "tail", "vss"), w_in, l_in, vgs2, xb - vs, vs),
             dev("cascode_n_a", "n", ("mirc", "vbn", "xa", "vss"), w_cn, l_cn, vbn - xd, mirc - xd, xd),
-            dev("cascode_n_b", "n", ("out", "vbn", "xb", "vss"), w_cn, l_cn, vbn - xb, vcm - xb, xb),
+            dev("cascode_n_b", "n", ("out", "vbn", "xb", "vss"), w_cn, l_cn, vbn - xb, vout - xb, xb),
             dev("mirror_top_a", "p", ("pa", "mirc", "vdd", "vdd"), w_top, l_top, vsg_t, vdd - pa, zero),
             dev("mirror_top_b", "p", ("pb", "mirc", "vdd", "vdd"), w_top, l_top, vsg_t, vdd - pb, zero),
             dev("cascode_p_a", "p", ("mirc", "vbp", "pa", "vdd"), w_cp, l_cp, pa - vbp, pa - mirc, vdd - pa),
@@ -106,7 +107,7 @@ class TelescopicCascode:
             "cm_high_v": xd + op["input_pair_a"].op.vth,
             "offset_sys_v": vgs2 - vgs1,
             "offset_sigma_v": pair_offset_sigma(tech, w_in, l_in, w_top, l_top, gm_in, gm_top),
-            "noise_thermal_v_rthz": pair_thermal_noise(tech, gm_in, gm_top),
         }
         metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
-        return Build(devices, elements, bias.i_ref + i5 + 2 * i_gen, metrics)
+        # The supply feeds the tail through the mirror, less what the following stage pushes into out.
+        return Build(devices, elements, bias.i_ref + i5 - cond.i_out + 2 * i_gen, metrics)

@@ -59,7 +59,6 @@ class TwoStageMiller:
             "cm_high_v": fig["cm_high_v"],
             "offset_sys_v": fig["offset_sys_v"],
             "offset_sigma_v": fig["offset_sigma_v"],
-            "noise_thermal_v_rthz": fig["noise_thermal_v_rthz"],
             "gbw_hand_hz": gbw_dominant_pole(first[1].op.gm, cc),
         }
         metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]

@@ -60,6 +60,14 @@ class Technology(Protocol):
         """Width (m) and VGS (V) giving drain current i_d at transconductance efficiency gm_id."""
         ...
 
+    def flicker(self, polarity: Polarity, w, l, op: OperatingPoint) -> np.ndarray:
+        """Drain-current flicker noise density at 1 Hz, A^2/Hz, at the operating point (NaN: unknown)."""
+        ...
+
+    def flicker_exponent(self, polarity: Polarity) -> float:
+        """EF in S_id(f) = S_id(1 Hz) / f^EF."""
+        ...
+
     def avt(self, polarity: Polarity) -> float:
         """Pelgrom threshold-mismatch coefficient, V*m: sigma(VT1 - VT2) / sqrt(2) = avt / sqrt(W L)."""
         ...

@@ -36,6 +36,7 @@ class LevelOneDevice:
     mjsw: float
     pb: float        # V
     avt: float = float("nan")  # V*m, Pelgrom threshold-mismatch coefficient: sigma(dVT) = avt / sqrt(W L)
+    kf: float = 0.0            # ngspice level-1 flicker coefficient (AF = 1), see SquareLaw.flicker
 
 
 @dataclass(frozen=True)
@@ -96,6 +97,15 @@ class SquareLaw:
         w = 2.0 * i_d * l / (d.kp * vov**2 * (1.0 + lam * vds))
         return w, self.vth(polarity, vsb) + vov
 
+    def flicker(self, polarity: Polarity, w, l, op: OperatingPoint):
+        """Drain-current flicker density times frequency, A^2: ngspice's level-1 form with AF = 1,
+        KF ID / (Cox^2 W L) (checked against ngspice's noise analysis in tests/test_noise.py)."""
+        d = self._dev(polarity)
+        return d.kf * op.id / ((EPS_OX / d.tox) ** 2 * w * l)
+
+    def flicker_exponent(self, polarity: Polarity) -> float:
+        return 1.0   # level-1 EF default
+
     def junction_area(self, w):
         """Drain (or source) diffusion area and perimeter for a device of width w."""
         return w * self.diffusion_length, w + 2.0 * self.diffusion_length
@@ -150,6 +160,6 @@ class SquareLaw:
                     f"kp={d.kp:.6g} gamma={d.gamma:.6g} phi={d.phi:.6g} lambda={d.lambda_l / l:.6g} "
                     f"tox={d.tox:.6g} cgso={d.cgso:.6g} cgdo={d.cgdo:.6g} cgbo={d.cgbo:.6g} "
                     f"cj={d.cj:.6g} mj={d.mj:.6g} cjsw={d.cjsw:.6g} mjsw={d.mjsw:.6g} pb={d.pb:.6g} "
-                    f"ld=0 tnom={self.temperature - 273.15:.6g}"
+                    f"ld=0 kf={d.kf:.6g} af=1 tnom={self.temperature - 273.15:.6g}"
                 )
         return lines

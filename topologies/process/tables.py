@@ -168,6 +168,10 @@ class TableProcess:
     spice_init: tuple[str, ...]         # lines for the netlists' .spiceinit
     description: str = ""
     gm_id_bounds: tuple[float, float] = (3.0, 25.0)
+    # Measured flicker coefficients per polarity (optimize.flicker): {"l_um", "gm_id", "k_v2m2", "exponent"};
+    # None leaves flicker unknown (NaN), never silently zero.
+    flicker_n: dict | None = None
+    flicker_p: dict | None = None
     avt_n: float = float("nan")         # V*m, Pelgrom coefficients (NaN: unknown)
     avt_p: float = float("nan")
 
@@ -224,6 +228,32 @@ class TableProcess:
             cgs=-partials["gs"], cgd=-partials["gd"], cgb=partials["gg"] + partials["gd"] + partials["gs"],
             cdb=lin["cdb"] * w, csb=lin["csb"] * w, vth=lin["vth"], vdsat=lin["vdsat"], partials=partials,
         )
+
+    def _flicker(self, polarity: Polarity) -> dict | None:
+        return self.flicker_n if polarity == "n" else self.flicker_p
+
+    def flicker(self, polarity, w, l, op: OperatingPoint):
+        """S_id * f = K gm^2 / (W L), K measured at 1 Hz and interpolated in log L and gm/ID (clipped)."""
+        data = self._flicker(polarity)
+        if data is None:
+            return np.full(np.shape(op.gm), np.nan)
+        logl = np.log(np.asarray(data["l_um"]) * 1e-6)
+        levels = np.asarray(data["gm_id"])
+        k = np.asarray(data["k_v2m2"])
+        with np.errstate(divide="ignore", invalid="ignore"):
+            x = np.clip(np.log(np.asarray(l, float)), logl[0], logl[-1])
+            y = np.clip(op.gm / op.id, levels[0], levels[-1])
+        i = np.clip(np.searchsorted(logl, x, side="right") - 1, 0, len(logl) - 2)
+        j = np.clip(np.searchsorted(levels, y, side="right") - 1, 0, len(levels) - 2)
+        tx = (x - logl[i]) / (logl[i + 1] - logl[i])
+        ty = (y - levels[j]) / (levels[j + 1] - levels[j])
+        coef = ((1 - tx) * (1 - ty) * k[i, j] + tx * (1 - ty) * k[i + 1, j]
+                + (1 - tx) * ty * k[i, j + 1] + tx * ty * k[i + 1, j + 1])
+        return coef * op.gm**2 / (np.asarray(w) * np.asarray(l))
+
+    def flicker_exponent(self, polarity) -> float:
+        data = self._flicker(polarity)
+        return float(np.mean(data["exponent"])) if data is not None else 1.0
 
     def spice_instance(self, name, polarity, nodes, w, l):
         device = self._t(polarity).meta["device"]
