@@ -37,7 +37,7 @@ class Grid:
     # Denser at low VDS, where the saturation knee bends the curves most.
     vds: tuple[float, ...] = (0.05, 0.1, 0.15, 0.2, 0.25) + tuple(round(0.3 + 0.1 * k, 2) for k in range(16))
     # Denser near 0, where the body effect bends most (interpolated on a sqrt scale in the tables).
-    vsb: tuple[float, ...] = (0.0, 0.1, 0.2, 0.3, 0.45, 0.6, 0.8)
+    vsb: tuple[float, ...] = (0.0, 0.1, 0.2, 0.3, 0.45, 0.6, 0.8, 1.0, 1.2)
     width: float = 1.0      # um: the finger width every device is built from (m parallel fingers)
 
     def axis(self, spec) -> np.ndarray:

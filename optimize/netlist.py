@@ -101,3 +101,36 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         ".end",
         "",
     ])
+
+
+def swing_testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: str, subckt_file: str,
+                    data_file: str, step: float = 0.005) -> str:
+    """DC sweep into the load: the amplifier as an inverter of gain -1 around the common-mode level
+    (1 MOhm feedback pair, far lighter than any load), the set point swept rail to rail. The output and the
+    set point go to `data_file`; where the output stops following the set point is the usable swing."""
+    rl = (f"Rload out term {cond.r_load:.6g}\nVterm term 0 {cond.v_cm:.6g}" if np.isfinite(cond.r_load)
+          else "* no load resistance in the spec")
+    return "\n".join([
+        f"* ampfront output-swing testbench for {name}: DC sweep into the load",
+        *model_lines(build, i, tech),
+        f".include {subckt_file}",
+        f".temp {tech.temperature - 273.15:g}",
+        f"Vsupply vdd 0 {cond.vdd:.6g}",
+        "Vground vss 0 0",
+        f"Vcm cm 0 {cond.v_cm:.6g}",
+        f"Xamp cm fb out vdd vss {name}",
+        "Rfeedback out fb 1e6",
+        "Rset fb set 1e6",
+        f"Vset set 0 {cond.v_cm:.6g}",
+        rl,
+        # Tight tolerances: the open-loop gain is read from how closely the output follows the set point.
+        ".options reltol=1e-7 abstol=1e-15 vntol=1e-10",
+        ".control",
+        "set noaskquit",
+        f"dc Vset 0 {cond.vdd:.6g} {step:g}",
+        f"wrdata {data_file} v(out)",
+        "quit 0",
+        ".endc",
+        ".end",
+        "",
+    ])

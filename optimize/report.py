@@ -19,7 +19,9 @@ SHOWN = {
     "phase_margin_deg": ("Phase margin", "°", None), "gain_margin_db": ("Gain margin", "dB", None),
     "power_w": ("Power", "W", 1.0), "area_um2": ("Area", "µm²", None),
     "slew_v_per_us": ("Slew rate", "V/µs", None), "swing_v": ("Output swing", "V", None),
-    "noise_thermal_v_rthz": ("Noise", "V/√Hz", 1.0), "offset_sigma_v": ("Offset (1σ)", "V", 1.0),
+    "noise_thermal_v_rthz": ("White noise", "V/√Hz", 1.0), "noise_corner_hz": ("1/f corner", "Hz", 1.0),
+    "noise_rms_v": ("Noise in band", "Vrms", 1.0), "offset_sigma_v": ("Offset (1σ)", "V", 1.0),
+    "peak_out_a": ("Peak output current", "A", 1.0), "output_resistance_ohm": ("Output resistance", "Ω", 1.0),
     "cmrr_db": ("CMRR", "dB", None), "psrr_db": ("PSRR", "dB", None),
 }
 _PALETTE = ["#0b6e4f", "#c84c09", "#3a5a9b", "#8a2a6b", "#b59a00", "#2a8a8a", "#6b4f2a", "#555555"]

@@ -85,6 +85,8 @@ def write_netlists(folder: Path, study: Study, tech, front: TopologyFront) -> No
         (folder / f"{design}.sp").write_text(netlist.subckt(build, i, tech, design, topology.title, op))
         (folder / f"{design}_tb.sp").write_text(
             netlist.testbench(build, i, tech, study.conditions, design, f"{design}.sp"))
+        (folder / f"{design}_swing.sp").write_text(netlist.swing_testbench(
+            build, i, tech, study.conditions, design, f"{design}.sp", f"{design}_swing.dat"))
 
 
 def run_study(study_path: Path, out: Path, seed: int | None = None,

@@ -44,6 +44,8 @@ SPEC_SCHEMA = {
     "max_area": Field("m^2"),
     "max_offset_sigma": Field("V"),
     "max_noise_density": Field("V/sqrt(Hz)"),
+    "max_noise_rms": Field("V"),
+    "min_output_current": Field("A"),
     "saturation_margin": Field("V"),
 }
 SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed": Field("int", positive=False)}
@@ -110,6 +112,23 @@ def _input_cm(source: str, raw, supply: float) -> tuple[float, float]:
     return low, high
 
 
+DEFAULT_NOISE_BAND = (1.0, 1e6)   # Hz
+
+
+def _noise_band(source: str, raw) -> tuple[float, float]:
+    from .schema import read_value
+
+    if raw is None:
+        return DEFAULT_NOISE_BAND
+    expected = 'a band ["1 Hz", "100 kHz"], lower edge first, both above 0'
+    if not isinstance(raw, list) or len(raw) != 2:
+        raise InputError(source, "spec.noise_band", expected, raw)
+    low, high = (read_value(source, "spec.noise_band", v, Field("Hz")) for v in raw)
+    if not 0 < low < high:
+        raise InputError(source, "spec.noise_band", expected, raw)
+    return low, high
+
+
 def load_study(path: Path, topology_names) -> Study:
     source = str(path)
     raw = read_toml(path)
@@ -118,9 +137,11 @@ def load_study(path: Path, topology_names) -> Study:
         raise InputError(source, "spec", "a [spec] table", "missing")
     spec_raw = dict(raw["spec"]) if isinstance(raw["spec"], dict) else raw["spec"]
     cm_raw = spec_raw.pop("input_cm", None) if isinstance(spec_raw, dict) else None
+    band_raw = spec_raw.pop("noise_band", None) if isinstance(spec_raw, dict) else None
     spec = read_table(source, "spec.", spec_raw, SPEC_SCHEMA)
     supply = spec["supply"]
     cm_range = _input_cm(source, cm_raw, supply)
+    noise_band = _noise_band(source, band_raw)
     swing = spec.get("min_output_swing")
     if swing is not None and swing >= supply:
         raise InputError(source, "spec.min_output_swing", f"a swing below the supply ({supply:g} V)", swing)
@@ -159,7 +180,8 @@ def load_study(path: Path, topology_names) -> Study:
 
     constraints = _constraints(spec, cm_range)
     conditions = Conditions(vdd=supply, c_load=spec["load_capacitance"],
-                            r_load=spec.get("load_resistance", np.inf), v_cm=0.5 * (cm_range[0] + cm_range[1]))
+                            r_load=spec.get("load_resistance", np.inf), v_cm=0.5 * (cm_range[0] + cm_range[1]),
+                            noise_band=noise_band)
     return Study(
         path=path, title=str(raw.get("title", path.stem)), spec=spec, conditions=conditions,
         cm_range=cm_range, constraints=constraints, objectives=tuple(objectives),
@@ -178,6 +200,8 @@ def _constraints(spec: dict, cm_range: tuple[float, float]) -> tuple[Constraint,
         ("max_power", "power_w", "max", "W"), ("max_area", "area_um2", "max", "um^2"),
         ("max_offset_sigma", "offset_sigma_v", "max", "V"),
         ("max_noise_density", "noise_thermal_v_rthz", "max", "V/sqrt(Hz)"),
+        ("max_noise_rms", "noise_rms_v", "max", "V"),
+        ("min_output_current", "peak_out_a", "min", "A"),
     ]
     out = []
     for key, metric, sense, unit in table:
@@ -191,6 +215,8 @@ def _constraints(spec: dict, cm_range: tuple[float, float]) -> tuple[Constraint,
     margin = spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)
     out.append(Constraint("saturation_margin", "sat_min_v", "min", margin, 0.1, "V"))
     out.append(Constraint("min_width", "min_width_ratio", "min", 1.0, 1.0, "x w_min"))
+    # A DC operating point that does not satisfy KCL to 0.1 % of the supply current is not a design.
+    out.append(Constraint("dc_solved", "dc_residual", "max", 1e-3, 1e-3, "x supply"))
     # An amplifier whose open loop has right-half-plane poles is unstable whatever its phase margin says.
     out.append(Constraint("open_loop_stable", "rhp_poles", "max", 0.0, 1.0, "poles"))
     # The input common-mode range must lie inside what the amplifier accepts.

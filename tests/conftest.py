@@ -29,3 +29,41 @@ def square_law_run(tmp_path_factory):
     folder = tmp_path_factory.mktemp("square")
     run_study(square_law_study(folder), folder / "result")
     return folder / "result"
+
+
+LINE_DRIVER = """
+title = "Line driver into 5 kOhm"
+topologies = ["simple_ota_ab", "telescopic_cascode_ab", "folded_cascode_ab"]
+objectives = ["power", "gbw"]
+technology = "{technology}"
+
+[spec]
+supply = "1.8 V"
+load_capacitance = "2 pF"
+load_resistance = "5 kOhm"
+min_gain = "50 dB"
+min_gbw = "2 MHz"
+min_phase_margin = "60 deg"
+input_cm = "0.9 V"
+max_power = "2 mW"
+
+[search]
+population = 64
+generations = 40
+seed = 3
+"""
+
+
+@pytest.fixture(scope="session")
+def driver_runs(tmp_path_factory):
+    """The class-AB variants driving 5 kOhm, one run per technology on first use: folder of outputs."""
+    done: dict[str, Path] = {}
+
+    def run(technology: str) -> Path:
+        if technology not in done:
+            folder = tmp_path_factory.mktemp(f"driver-{technology}")
+            (folder / "study.toml").write_text(LINE_DRIVER.format(technology=technology))
+            run_study(folder / "study.toml", folder / "out")
+            done[technology] = folder / "out"
+        return done[technology]
+    return run

@@ -36,6 +36,17 @@ class StageBuild:
     internals: dict[str, np.ndarray] = field(default_factory=dict)
 
 
+# Table technologies start their VGS axis near 0.15 V and give NaN below; a gate driven that low carries
+# nothing worth counting against milliamps of load current.
+OFF_GATE = 0.25
+# Saturation voltage budgeted for the current sources that feed the bias stacks (common practice).
+REFERENCE_HEADROOM = 0.15
+
+
+def _off_is_zero(current, vgs):
+    return np.where(np.isnan(current) & (vgs < OFF_GATE), 0.0, current)
+
+
 class ClassABOutput:
     suffix = "ab"
     title = "class-AB output"
@@ -81,8 +92,8 @@ class ClassABOutput:
         def float_balance(gp, gn):
             """Current the floating control passes into the pull-down gate minus what the sink takes."""
             v = np.maximum(gp - gn, 1e-4)
-            return (tech.current("p", w_fp, l_fl, gp - vbp, v, vdd - gp)
-                    + tech.current("n", w_fn, l_fl, vbn - gn, v, gn)
+            return (_off_is_zero(tech.current("p", w_fp, l_fl, gp - vbp, v, vdd - gp), gp - vbp)
+                    + _off_is_zero(tech.current("n", w_fn, l_fl, vbn - gn, v, gn), vbn - gn)
                     - tech.current("n", w_snk, l_out, rn, gn, zero))
 
         def gate_up(gn):
@@ -94,6 +105,8 @@ class ClassABOutput:
         gn = bisect_decreasing(lambda g: float_balance(gate_up(g), g), zero + 0.02, zero + vdd - 0.02,
                                nan_above=gn_est)
         gp = gate_up(gn)
+        # A root the bracket does not hold (the control pushed off the model's range) is no solution.
+        gn = np.where(np.abs(float_balance(gp, gn)) <= 1e-4 * i_ref, gn, np.nan)
         i_src = tech.current("p", w_src, l_out, vdd - rp, vdd - gp, zero)
         # Source and sink are ratioed copies that need not match once widths are drawn: the core's output
         # takes the difference.
@@ -126,7 +139,7 @@ class ClassABOutput:
             Element("C", "ab_miller_down", "ab_czn", "out", half_cc),
         ]
         i_q = devices[0].op.id
-        internals = {"i_q": i_q, "i_src": i_src, "w_up": w_up, "w_dn": w_dn, "l_out": l_out,
+        internals = {"i_q": i_q, "i_src": i_src, "gn": gn, "vbp": vbp, "vbn": vbn, "w_up": w_up, "w_dn": w_dn, "l_out": l_out,
                      "float_balance": float_balance, "vout": zero + vout}
         return StageBuild(devices, elements, i_q + i_src + 2 * i_ref, gp, half_cc, i_src - i_snk, internals)
 
@@ -137,15 +150,21 @@ class ClassABOutput:
         zero = np.zeros_like(s["i_q"])
         w_up, w_dn, l = s["w_up"], s["w_dn"], s["l_out"]
         gp_low, gp_high = core["out_low_v"], core["out_high_v"]
-        # Pull-down gate when the core drives the pull-up gate to either end of its range.
+        # Pull-down gate when the core drives the pull-up gate to either end of its range. Past the model's
+        # range (control devices below 50 mV or the sink in deep triode) the bounds stay conservative: the
+        # pull-down gate cannot rise above the pull-up gate it follows, nor above its quiescent level, when
+        # the core pulls down; and the largest balanced level still on the table is a lower bound when the
+        # core pulls up.
         gn_low = bisect_decreasing(lambda g: s["float_balance"](gp_low, g), zero + 0.02, gp_low, 24)
+        gn_low = np.where(np.isfinite(s["float_balance"](gp_low, gn_low)), gn_low,
+                          np.minimum(gp_low, s["gn"]))
         gn_high = bisect_decreasing(lambda g: s["float_balance"](gp_high, g), zero + 0.02, gp_high, 24)
 
         def up(vsg, v):
-            return tech.current("p", w_up, l, vsg, vdd - v, zero)
+            return _off_is_zero(tech.current("p", w_up, l, vsg, vdd - v, zero), vsg)
 
         def down(vgs, v):
-            return tech.current("n", w_dn, l, vgs, v, zero)
+            return _off_is_zero(tech.current("n", w_dn, l, vgs, v, zero), vgs)
 
         load = (lambda v: (v - vcm) / cond.r_load) if np.isfinite(cond.r_load) else (lambda v: 0.0 * v)
         vout = s["vout"]
@@ -172,6 +191,9 @@ class ClassABOutput:
         slew = np.minimum.reduce([core["slew_v_per_us"] * 1e6, s["i_src"] / stage.input_load,
                                   np.minimum(peak_source, peak_sink) / c_total])
         return {
+            # The reference sources of the bias stacks need room to be real current sources.
+            "sat_ab_up_reference_v": s["vbp"] - REFERENCE_HEADROOM,
+            "sat_ab_down_reference_v": vdd - s["vbn"] - REFERENCE_HEADROOM,
             "slew_v_per_us": slew * 1e-6,
             "out_high_v": out_high,
             "out_low_v": out_low,

@@ -30,6 +30,8 @@ class SimpleOTA:
         out_pair, load_out = devices[1], devices[3]
         metrics = {
             "slew_v_per_us": fig["i_tail"] / cond.c_load * 1e-6,
+            "peak_source_a": fig["i_tail"],
+            "peak_sink_a": fig["i_tail"],
             "out_high_v": vdd - load_out.op.vdsat,
             # Lowest output keeping the output-side input device saturated, with the tail at its bias.
             "out_low_v": (vcm - fig["vgs_in"]) + out_pair.op.vdsat,

@@ -53,6 +53,10 @@ class TwoStageMiller:
         ]
         metrics = {
             "slew_v_per_us": np.minimum(fig["i_tail"] / cc, i_sink / (cc + cond.c_load)) * 1e-6,
+            # The driver's gate can fall to where the first stage's output device leaves saturation.
+            "peak_source_a": tech.current("p", w_drv, l_drv, vdd - (vcm - fig["vgs_in"] + first[1].op.vdsat),
+                                          vdd - vcm + zero, zero) - i_sink,
+            "peak_sink_a": i_sink,
             "out_high_v": vdd - driver.op.vdsat,
             "out_low_v": sink.op.vdsat,
             "cm_low_v": fig["cm_low_v"],
