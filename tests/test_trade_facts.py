@@ -63,3 +63,24 @@ def test_closed_loop_gain_error_from_finite_open_loop_gain():
     a0, beta = 1000.0, 1 / 11
     closed = a0 / (1 + a0 * beta)
     assert 1 - closed * beta == pytest.approx(closed_loop_gain_error(a0, beta), rel=1e-12)
+
+
+def test_white_noise_of_a_mirror_loaded_pair_is_the_hand_formula():
+    """Common practice: a five-transistor OTA's input white noise density squared is
+    2 * 4kT gamma / gm_in * (1 + gm_load / gm_in); tail and bias noise are common mode and cancel. The
+    solver's noise (every source carried to the output) must agree."""
+    from topologies.insight import pair_thermal_noise
+    from topologies.simple_ota import SimpleOTA
+
+    tech = generic180()
+    x = random_designs(SimpleOTA(), tech, 2000, seed=9)
+    metrics, build = evaluate(SimpleOTA(), x, tech, DEMO_CONDITIONS)
+    ok = (metrics["sat_min_v"] > 0.05) & (metrics["gain_db"] > 20)
+    assert ok.sum() > 50
+    roles = {d.role: d.op for d in build.devices}
+    hand = pair_thermal_noise(tech.temperature, roles["input_pair_b"].gm, roles["mirror_out"].gm)
+    ratio = metrics["noise_thermal_v_rthz"][ok] / hand[ok]
+    # Agreement to a few percent: the hand formula takes the two halves as equal and ignores the pair's
+    # finite output resistance and the body effect the solver keeps.
+    assert np.median(ratio) == pytest.approx(1.0, abs=0.03)
+    assert np.mean(np.abs(ratio - 1) < 0.1) > 0.9
