@@ -10,7 +10,7 @@ import numpy as np
 
 from .base import Build, Conditions, Element, Variable, gm_id_variable, length_variable, snap_length
 from .process.base import Technology, diode_vgs
-from .stages import BiasBranch, MAX_ITERATIONS, settled, cascode_variables, device, pair_mismatch, pair_variables
+from .stages import BiasBranch, CASCODE_ITERATIONS, cascode_variables, device, pair_mismatch, pair_variables
 
 
 class FoldedCascode:
@@ -64,7 +64,7 @@ class FoldedCascode:
         vbn = diode_vgs(tech, "n", w_bn, l_cn, i_gen)
         fa, na, mirc, vs = fa_t, na_t, vgs_mb, zero + vcm - 0.6
         fb, nb2, i1, i2 = fa, na, half, half
-        for _ in range(MAX_ITERATIONS):
+        for _ in range(CASCODE_ITERATIONS):
             _, i5 = bias.source(tech, "tail_source", "tail", x["i_tail"], np.maximum(vs, 1e-3))
             vgs1 = tech.vgs_for_current("n", w_in, l_in, i1, np.maximum(fa - vs, 1e-3), vs)
             vs = vcm - vgs1
@@ -82,11 +82,8 @@ class FoldedCascode:
             fb = vbp2 + tech.vgs_for_current("p", w_cp, l_cp, i_cas_b, np.maximum(fb - vout, 1e-3), vdd - fb)
             i_src_b = tech.current("p", w_src, l_src, vdd - vbp1, np.maximum(vdd - fb, 1e-3), zero)
             # Damped: the split feeds back through both folding nodes and overshoots when taken whole.
-            previous = i1
             i2 = 0.5 * i2 + 0.5 * np.clip(i_src_b - i_cas_b, 1e-3 * i5, (1 - 1e-3) * i5)
             i1 = i5 - i2
-            if settled(previous, i1, i5):
-                break
         vgs2 = tech.vgs_for_current("n", w_in, l_in, i2, np.maximum(fb - vs, 1e-3), vs)
 
         def dev(role, pol, nodes, w, l, vgs, vds, vsb):

@@ -39,17 +39,12 @@ def cascode_variables(tech: Technology, headroom_doc: str) -> tuple[Variable, ..
     )
 
 
-# DC operating points are solved by damped fixed-point iteration over the branch currents; weak-inversion
-# stacks need a few tens of steps to settle to 1 ppm of the tail current, most designs far fewer.
-MAX_ITERATIONS = 80
-SETTLED = 1e-6
-
-
-def settled(previous, current, scale) -> bool:
-    """True when no finite design's current moved by more than SETTLED of its scale in the last step."""
-    step = np.abs(current - previous) / np.abs(scale)
-    step = step[np.isfinite(step)]
-    return step.size == 0 or float(step.max()) < SETTLED
+# DC operating points are solved by damped fixed-point iteration over the branch currents, a fixed number
+# of steps so a design's result never depends on the population it is evaluated with. The counts settle
+# all but about one percent of random designs to 10 ppm of the tail current; the rest fail the
+# study's KCL constraint (dc_solved) rather than pass unconverged.
+PAIR_ITERATIONS = 12
+CASCODE_ITERATIONS = 24
 
 
 def pair_mismatch(tech: Technology, polarity, w, l):
@@ -135,17 +130,15 @@ class MirrorPair:
         zero = np.zeros_like(self.w_in)
         vs, i1 = zero + vcm - 0.6, i_tail_target / 2
         vsd_out = vdd - v_o1
-        for _ in range(MAX_ITERATIONS):
+        for _ in range(PAIR_ITERATIONS):
             _, i5 = bias.source(tech, "tail_source", "tail", i_tail_target, np.maximum(vs, 1e-3))
             vsg3 = diode_vgs(tech, "p", self.w_load, self.l_load, i1)
             ratio = (tech.current("p", self.w_load, self.l_load, vsg3, vsd_out, zero)
                      / tech.current("p", self.w_load, self.l_load, vsg3, vsg3, zero))
             # Damped: the tail current follows the pair's source voltage, which follows i1.
-            previous, i1 = i1, 0.5 * i1 + 0.5 * (i5 - i_load) / (1 + ratio)
+            i1 = 0.2 * i1 + 0.8 * (i5 - i_load) / (1 + ratio)
             vgs1 = tech.vgs_for_current("n", self.w_in, self.l_in, i1, vdd - vsg3 - vs, vs)
             vs = vcm - vgs1
-            if settled(previous, i1, i5):
-                break
         i2 = i5 - i1
         vds1, vds2 = vdd - vsg3 - vs, v_o1 - vs
         vgs2 = tech.vgs_for_current("n", self.w_in, self.l_in, i2, vds2, vs)

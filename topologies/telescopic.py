@@ -10,7 +10,7 @@ import numpy as np
 
 from .base import Build, Conditions, Element, Variable, snap_length
 from .process.base import Technology, diode_vgs
-from .stages import BiasBranch, MAX_ITERATIONS, settled, cascode_variables, device, pair_offset_sigma, pair_variables
+from .stages import BiasBranch, CASCODE_ITERATIONS, cascode_variables, device, pair_offset_sigma, pair_variables
 
 
 class TelescopicCascode:
@@ -54,7 +54,7 @@ class TelescopicCascode:
         vs, xd, i5 = zero + vcm - 0.6, vd_in, x["i_tail"]
         pa, mirc = vp_top, vdd - vsg_top
         xb, pb, i1, i2 = xd, pa, half, half
-        for _ in range(MAX_ITERATIONS):
+        for _ in range(CASCODE_ITERATIONS):
             _, i5 = bias.source(tech, "tail_source", "tail", x["i_tail"], np.maximum(vs, 1e-3))
             vgs1 = tech.vgs_for_current("n", w_in, l_in, i1, np.maximum(xd - vs, 1e-3), vs)
             vs = vcm - vgs1
@@ -67,11 +67,8 @@ class TelescopicCascode:
             i_top_b = tech.current("p", w_top, l_top, vsg_t, np.maximum(vdd - pb, 1e-3), zero)
             pb = vbp + tech.vgs_for_current("p", w_cp, l_cp, i_top_b, np.maximum(pb - vout, 1e-3), vdd - pb)
             xb = vbn - tech.vgs_for_current("n", w_cn, l_cn, i2, np.maximum(vout - xb, 1e-3), xb)
-            previous = i1
             i2 = 0.5 * i2 + 0.5 * np.clip(i_top_b + cond.i_out, 1e-3 * i5, (1 - 1e-3) * i5)
             i1 = i5 - i2
-            if settled(previous, i1, i5):
-                break
         vgs2 = tech.vgs_for_current("n", w_in, l_in, i2, np.maximum(xb - vs, 1e-3), vs)
         vsd_right = pb - vout
 
