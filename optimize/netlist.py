@@ -36,13 +36,18 @@ def model_lines(build: Build, i: int, tech: Technology) -> list[str]:
     return tech.spice_models(lengths)
 
 
+def _load(cond: Conditions) -> str:
+    """The load resistor returns to its own copy of the common-mode level, so the rejection runs (which
+    move `cm`) do not drive the output through it."""
+    if not np.isfinite(cond.r_load):
+        return "* no load resistance in the spec"
+    return f"Rload out term {cond.r_load:.6g}\nVterm term 0 {cond.v_cm:.6g}"
+
+
 def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: str, subckt_file: str) -> str:
     """Open-loop testbench: DC loop closed through a large inductor (unity-gain follower at DC), the
     inverting input held at AC ground by a large capacitor, an AC source on the non-inverting input."""
-    # The load returns to its own copy of the common-mode level, so the rejection runs (which move `cm`)
-    # do not drive the output through it.
-    rl = (f"Rload out term {cond.r_load:.6g}\nVterm term 0 {cond.v_cm:.6g}" if np.isfinite(cond.r_load)
-          else "* no load resistance in the spec")
+    rl = _load(cond)
     tag = RESULT_TAG
     return "\n".join([
         f"* ampfront testbench for {name}: open-loop gain, GBW, phase margin and supply current",
@@ -108,8 +113,7 @@ def swing_testbench(build: Build, i: int, tech: Technology, cond: Conditions, na
     """DC sweep into the load: the amplifier as an inverter of gain -1 around the common-mode level
     (1 MOhm feedback pair, far lighter than any load), the set point swept rail to rail. The output and the
     set point go to `data_file`; where the output stops following the set point is the usable swing."""
-    rl = (f"Rload out term {cond.r_load:.6g}\nVterm term 0 {cond.v_cm:.6g}" if np.isfinite(cond.r_load)
-          else "* no load resistance in the spec")
+    rl = _load(cond)
     return "\n".join([
         f"* ampfront output-swing testbench for {name}: DC sweep into the load",
         *model_lines(build, i, tech),

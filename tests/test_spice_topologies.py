@@ -30,7 +30,7 @@ max_power = "300 uW"               # keeps the fronts below ~300 MHz, where the 
 
 [search]
 population = 48
-generations = 20
+generations = 40
 seed = 3
 """
 
