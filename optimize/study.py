@@ -46,6 +46,8 @@ SPEC_SCHEMA = {
     "max_noise_density": Field("V/sqrt(Hz)"),
     "max_noise_rms": Field("V"),
     "min_output_current": Field("A"),
+    "min_cmrr": Field("dB"),
+    "min_psrr": Field("dB"),
     "saturation_margin": Field("V"),
 }
 SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed": Field("int", positive=False)}
@@ -202,6 +204,7 @@ def _constraints(spec: dict, cm_range: tuple[float, float]) -> tuple[Constraint,
         ("max_noise_density", "noise_thermal_v_rthz", "max", "V/sqrt(Hz)"),
         ("max_noise_rms", "noise_rms_v", "max", "V"),
         ("min_output_current", "peak_out_a", "min", "A"),
+        ("min_cmrr", "cmrr_db", "min", "dB"), ("min_psrr", "psrr_db", "min", "dB"),
     ]
     out = []
     for key, metric, sense, unit in table:

@@ -34,6 +34,10 @@ CASES = {
     "no_spec": ('title = "x"\n', "spec"),
     "bad_population": (GOOD_SPEC + "[search]\npopulation = -5\n", "search.population"),
     "unknown_search_key": (GOOD_SPEC + "[search]\ngens = 5\n", "search.gens"),
+    "noise_band_reversed": (GOOD_SPEC + 'noise_band = ["1 MHz", "1 Hz"]\n', "spec.noise_band"),
+    "noise_band_one_edge": (GOOD_SPEC + 'noise_band = "1 MHz"\n', "spec.noise_band"),
+    "noise_band_wrong_unit": (GOOD_SPEC + 'noise_band = ["1 Hz", "1 MV"]\n', "spec.noise_band"),
+    "noise_rms_wrong_unit": (GOOD_SPEC + 'max_noise_rms = "5 uA"\n', "spec.max_noise_rms"),
 }
 
 
