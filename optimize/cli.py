@@ -67,14 +67,18 @@ def check(folder: Path = typer.Argument(..., help="a folder written by 'ampfront
         _fail(str(error), 2)
     except SpiceError as error:
         _fail(str(error), 1)
+    swing = "out_low_v_model" in table
     typer.echo(f"{'design':<10} {'gain (model/spice)':>22} {'GBW (model/spice)':>24} "
-               f"{'PM (model/spice)':>18} {'I supply (model/spice)':>26}  ok")
+               f"{'PM (model/spice)':>18} {'I supply (model/spice)':>26} "
+               + (f"{'swing (model/DC sweep)':>26} " if swing else "") + " ok")
     for _, r in table.iterrows():
+        span = (f"{r['out_low_v_model']:.2f}-{r['out_high_v_model']:.2f} / "
+                f"{r['out_low_v_spice']:.2f}-{r['out_high_v_spice']:.2f} V " if swing else "")
         typer.echo(f"{r['design']:<10} {r['gain_db_model']:>9.2f} / {r['gain_db_spice']:<6.2f} dB "
                    f"{eng(r['gbw_hz_model'], 'Hz'):>11} / {eng(r['gbw_hz_spice'], 'Hz'):<10} "
                    f"{r['phase_margin_deg_model']:>6.1f} / {r['phase_margin_deg_spice']:<5.1f}° "
                    f"{eng(r['supply_current_a_model'], 'A'):>11} / {eng(r['supply_current_a_spice'], 'A'):<12} "
-                   f"{'yes' if r['within_bounds'] else 'NO'}")
+                   f"{span:>27}{'yes' if r['within_bounds'] else 'NO'}")
     if not table["within_bounds"].all():
         raise typer.Exit(1)
 

@@ -111,7 +111,8 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
 def swing_testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: str, subckt_file: str,
                     data_file: str, step: float = 0.005) -> str:
     """DC sweep into the load: the amplifier as an inverter of gain -1 around the common-mode level
-    (1 MOhm feedback pair, far lighter than any load), the set point swept rail to rail. The output and the
+    (feedback by controlled sources, so nothing but the load loads the output), the set point swept rail
+    to rail. The output and the
     set point go to `data_file`; where the output stops following the set point is the usable swing."""
     rl = _load(cond)
     return "\n".join([
@@ -123,8 +124,9 @@ def swing_testbench(build: Build, i: int, tech: Technology, cond: Conditions, na
         "Vground vss 0 0",
         f"Vcm cm 0 {cond.v_cm:.6g}",
         f"Xamp cm fb out vdd vss {name}",
-        "Rfeedback out fb 1e6",
-        "Rset fb set 1e6",
+        # Ideal feedback v(fb) = (v(out) + v(set)) / 2: no resistor loading a high-impedance output.
+        "Ehalf_out fb mid out 0 0.5",
+        "Ehalf_set mid 0 set 0 0.5",
         f"Vset set 0 {cond.v_cm:.6g}",
         rl,
         # Tight tolerances: the open-loop gain is read from how closely the output follows the set point.

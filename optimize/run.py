@@ -135,9 +135,14 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
         (stage / "report.html").write_text(report.render(table, study, tech.name, summary), encoding="utf-8")
         for front in fronts:
             write_netlists(stage / "netlists", study, tech, front)
+        c = study.conditions
         write_json(stage / "manifest.json", {
             "tool": "ampfront", "versions": versions(), "seed": study.seed,
             "study": {"file": str(study.path), "sha256": study.digest, "title": study.title},
+            # The conditions every figure and testbench assumes, SI units.
+            "conditions": {"vdd_v": c.vdd, "c_load_f": c.c_load,
+                           "r_load_ohm": None if np.isinf(c.r_load) else c.r_load, "v_cm_v": c.v_cm,
+                           "noise_band_hz": list(c.noise_band)},
             "technology": {"name": tech.name, "file": str(study.technology), "corner": study.corner,
                            "sha256": file_hash(study.technology, study.corner)},
             "topologies": list(study.topologies), "objectives": list(study.objectives),

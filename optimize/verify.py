@@ -9,7 +9,7 @@ import pandas as pd
 
 from .errors import InputError
 from .schema import read_toml
-from .spice import simulate
+from .spice import simulate, simulate_swing
 
 # Agreement expected between model and simulator. Square law against ngspice level 1 is the same equations,
 # so only numerics separate them; tables against BSIM4 add interpolation and the two-terminal capacitance
@@ -26,6 +26,11 @@ BOUNDS = {
 # Rejection of an ideal, unmismatched circuit beyond this is set by residual bias asymmetries, not by the
 # circuit; real parts are limited by mismatch long before. Both sides are compared clipped here.
 REJECTION_CEILING_DB = 100.0
+# Swing from the DC sweep into the load (optimize.spice.simulate_swing): the model's swing keeps every
+# device of the signal path saturated, so it may end this much short of where the swept gain collapses,
+# and may claim at most SWING_SLACK_V more than the sweep shows.
+SWING_SLACK_V = 0.05
+SWING_SHORTFALL_V = 0.3
 
 
 def technology_kind(folder: Path) -> str:
@@ -34,6 +39,16 @@ def technology_kind(folder: Path) -> str:
         raise InputError(str(folder), "manifest.json", "a folder written by 'ampfront run'")
     tech_file = Path(json.loads(manifest.read_text())["technology"]["file"])
     return read_toml(tech_file).get("kind", "square_law")
+
+
+def study_cm(folder: Path) -> float:
+    """The common-mode level the testbenches were written for (manifest `conditions`)."""
+    manifest = json.loads((folder / "manifest.json").read_text())
+    try:
+        return float(manifest["conditions"]["v_cm_v"])
+    except (KeyError, TypeError, ValueError):
+        raise InputError(str(folder), "manifest.json conditions.v_cm_v", "a folder written by this version of "
+                         "'ampfront run'") from None
 
 
 def spread_picks(front: pd.DataFrame, count: int) -> list[int]:
@@ -48,6 +63,7 @@ def check_folder(folder: Path, count: int) -> pd.DataFrame:
         raise InputError(str(folder), "front.csv", "a folder written by 'ampfront run'")
     front = pd.read_csv(table)
     bounds = BOUNDS[technology_kind(folder)]
+    v_cm = study_cm(folder)
     rows = []
     for i in spread_picks(front, count):
         row = front.iloc[i].copy()
@@ -63,6 +79,15 @@ def check_folder(folder: Path, count: int) -> pd.DataFrame:
             error = abs(spice - model) if kind == "abs" else abs(spice - model) / abs(model)
             entry[f"{column}_model"], entry[f"{column}_spice"] = model, spice
             ok &= error <= bound
+        swing = folder / "netlists" / f"{row['design']}_swing.sp"
+        if swing.is_file():
+            swept = simulate_swing(swing, f"{row['design']}_swing.dat", v_cm)
+            for column, sign in (("out_low_v", 1.0), ("out_high_v", -1.0)):
+                model = float(row[column])
+                entry[f"{column}_model"], entry[f"{column}_spice"] = model, swept[column]
+                # Positive when the model is the more conservative of the two.
+                short = sign * (model - swept[column])
+                ok &= -SWING_SLACK_V <= short <= SWING_SHORTFALL_V
         entry["within_bounds"] = ok
         rows.append(entry)
     return pd.DataFrame(rows)

@@ -171,16 +171,19 @@ class ClassABOutput:
         peak_source = up(vdd - gp_low, vout) - down(gn_low, vout)
         peak_sink = down(gn_high, vout) - up(vdd - gp_high, vout)
 
+        # The conducting device carries the load plus what the other still draws, and never less than the
+        # quiescent current: the floating control only raises it from there as the load grows.
+        floor = s["i_q"]
+
         def high_room(v):
-            # The pull-up must carry the load and the pull-down's minimum current, saturated, at a gate
-            # drive the core can reach.
-            need = load(v) + down(gn_low, v)
+            # The pull-up must carry that current saturated, at a gate drive the core can reach.
+            need = np.maximum(load(v) + np.nan_to_num(down(gn_low, v)), floor)
             vsg = tech.vgs_for_current("p", w_up, l, need, vdd - v, zero)
             vdsat = tech.operating_point("p", w_up, l, vsg, vdd - v, zero).vdsat
             return np.minimum(vdd - gp_low - vsg, vdd - v - vdsat)
 
         def low_room(v):
-            need = -load(v) + up(vdd - gp_high, v)
+            need = np.maximum(-load(v) + np.nan_to_num(up(vdd - gp_high, v)), floor)
             vgs = tech.vgs_for_current("n", w_dn, l, need, v, zero)
             vdsat = tech.operating_point("n", w_dn, l, vgs, v, zero).vdsat
             return np.minimum(gn_high - vgs, v - vdsat)
