@@ -139,10 +139,13 @@ def list_topologies() -> None:
     tech = load(shipped()["generic180"])
     for name, topology in topologies.available().items():
         typer.echo(f"{name}  ({topology.title})")
-        for v in topology.variables(tech):
+        variables = topology.variables(tech)
+        width = max(len(v.name) for v in variables)
+        for v in variables:
             scale = "log" if v.log else "lin"
-            unit = "" if v.unit == "1" else v.unit
-            typer.echo(f"    {v.name:<12} {eng(v.low, unit):>9} .. {eng(v.high, unit):<9} {scale}  {v.doc}")
+            low, high = ((f"{v.low:g}", f"{v.high:g}") if v.unit == "1"
+                         else (eng(v.low, v.unit), eng(v.high, v.unit)))
+            typer.echo(f"    {v.name:<{width}} {low:>9} .. {high:<9} {scale}  {v.doc}")
 
 
 @app.command()
