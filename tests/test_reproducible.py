@@ -51,8 +51,8 @@ def test_parallel_search_gives_the_serial_front(tmp_path):
     """Topologies searched in separate processes give the very same front as one after the other."""
     study = tmp_path / "two.toml"
     # A short search of the demo; its noise bound is dropped so six generations still find designs.
-    text = (DEMO.read_text().replace("population = 100", "population = 24").replace("generations = 60", "generations = 6")
-            .replace('max_noise_rms = "40 uV"', ""))
+    text = (DEMO.read_text().replace("population = 100", "population = 24")
+            .replace("generations = 60", "generations = 6").replace('max_noise_rms = "40 uV"', ""))
     study.write_text(text)
     run_study(study, tmp_path / "serial", workers=1)
     run_study(study, tmp_path / "parallel", workers=2)

@@ -139,8 +139,8 @@ class ClassABOutput:
             Element("C", "ab_miller_down", "ab_czn", "out", half_cc),
         ]
         i_q = devices[0].op.id
-        internals = {"i_q": i_q, "i_src": i_src, "gn": gn, "vbp": vbp, "vbn": vbn, "w_up": w_up, "w_dn": w_dn, "l_out": l_out,
-                     "float_balance": float_balance, "vout": zero + vout}
+        internals = {"i_q": i_q, "i_src": i_src, "gn": gn, "vbp": vbp, "vbn": vbn, "w_up": w_up, "w_dn": w_dn,
+                     "l_out": l_out, "float_balance": float_balance}
         return StageBuild(devices, elements, i_q + i_src + 2 * i_ref, gp, half_cc, i_src - i_snk, internals)
 
     def metrics(self, stage: StageBuild, core: dict[str, np.ndarray], tech: Technology, cond: Conditions):
@@ -167,7 +167,7 @@ class ClassABOutput:
             return _off_is_zero(tech.current("n", w_dn, l, vgs, v, zero), vgs)
 
         load = (lambda v: (v - vcm) / cond.r_load) if np.isfinite(cond.r_load) else (lambda v: 0.0 * v)
-        vout = s["vout"]
+        vout = zero + vcm
         peak_source = up(vdd - gp_low, vout) - down(gn_low, vout)
         peak_sink = down(gn_high, vout) - up(vdd - gp_high, vout)
 

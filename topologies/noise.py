@@ -55,6 +55,8 @@ def noise_metrics(circuit: Circuit, build: Build, tech: Technology, gain, band: 
 
     f1, f2 = band
     corner = np.exp(bisect_decreasing(excess, np.zeros_like(white) + np.log(1e-3), np.log(1e12), 40))
+    # A technology without flicker data leaves the corner unknown rather than at the bracket's edge.
+    corner = np.where(np.isfinite(flicker["n"] + flicker["p"]), corner, np.nan)
     total = white * (f2 - f1) + sum(flicker[p] * _band_integral(exponents[p], f1, f2) for p in flicker)
     return {
         "noise_thermal_v_rthz": np.sqrt(white),
