@@ -1,3 +1,3 @@
-from .cli import main
+from ampfront.optimize.cli import main
 
 main()

@@ -8,12 +8,12 @@ import time
 
 import numpy as np
 
-import topologies
+from ampfront import topologies
 
-from .problem import DesignProblem
-from .search import run_search
-from .study import Study
-from .techfile import load, shipped
+from ampfront.optimize.search.problem import DesignProblem
+from ampfront.optimize.search.engine import run_search
+from ampfront.optimize.spec.study import Study
+from ampfront.topologies.process.techfile import load, shipped
 
 
 def _machine() -> str:
@@ -27,9 +27,9 @@ def _machine() -> str:
 
 
 def _bench_study(tech_path) -> Study:
-    from topologies.base import Conditions
+    from ampfront.topologies.base import Conditions
 
-    from .study import _constraints
+    from ampfront.optimize.spec.study import _constraints
 
     spec = {"min_gain": 60.0, "min_gbw": 1e6, "min_phase_margin": 45.0}
     return Study(path=tech_path, title="bench", spec=spec, conditions=Conditions(1.8, 2e-12, np.inf, 0.9),

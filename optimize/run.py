@@ -11,14 +11,14 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-import topologies
+from ampfront import topologies
 
-from . import netlist, report
-from .export import device_table, front_table, staged_directory, versions, write_json
-from .problem import DesignProblem, objective_matrix
-from .search import Progress, run_search
-from .study import Study, load_study
-from .techfile import file_hash, load
+from ampfront.optimize.outputs import netlist, report
+from ampfront.optimize.outputs.tables import device_table, front_table, staged_directory, versions, write_json
+from ampfront.optimize.search.problem import DesignProblem, objective_matrix
+from ampfront.optimize.search.engine import Progress, run_search
+from ampfront.optimize.spec.study import Study, load_study
+from ampfront.topologies.process.techfile import file_hash, load
 
 
 class NoFeasibleDesign(Exception):
@@ -100,7 +100,7 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     fronts, misses = [], {}
     workers = workers or min(len(study.topologies), os.cpu_count() or 1)
     if workers > 1:
-        from .parallel import search_all
+        from ampfront.optimize.search.fanout import search_all
 
         outcomes = search_all(study, progress_factory, workers)
     else:

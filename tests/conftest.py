@@ -2,7 +2,7 @@ from pathlib import Path
 
 import pytest
 
-from optimize.run import run_study
+from ampfront.optimize.run import run_study
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "studies" / "sensor_readout.toml"

@@ -2,8 +2,8 @@
 
 import numpy as np
 
-from optimize.techfile import load, shipped
-from topologies.base import Conditions
+from ampfront.topologies.process.techfile import load, shipped
+from ampfront.topologies.base import Conditions
 
 DEMO_CONDITIONS = Conditions(vdd=1.8, c_load=2e-12, r_load=np.inf, v_cm=0.9)
 

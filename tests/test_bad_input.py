@@ -47,7 +47,7 @@ def test_bad_study_gives_one_clear_line(case, tmp_path):
     study = tmp_path / f"{case}.toml"
     study.write_text(textwrap.dedent(text))
     out = tmp_path / "out"
-    proc = subprocess.run([sys.executable, "-m", "optimize", "run", str(study), "--out", str(out)],
+    proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "run", str(study), "--out", str(out)],
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 2, proc.stderr
     lines = proc.stderr.strip().splitlines()
@@ -59,7 +59,7 @@ def test_bad_study_gives_one_clear_line(case, tmp_path):
 
 
 def test_missing_study_file(tmp_path):
-    proc = subprocess.run([sys.executable, "-m", "optimize", "run", str(tmp_path / "nope.toml"), "--out",
+    proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "run", str(tmp_path / "nope.toml"), "--out",
                            str(tmp_path / "out")], capture_output=True, text=True, timeout=60)
     assert proc.returncode == 2 and "nope.toml" in proc.stderr and "Traceback" not in proc.stderr
 
@@ -71,7 +71,7 @@ def test_missing_study_file(tmp_path):
     (["--lengths", "0.15,-1"], "--lengths"),
 ])
 def test_bad_characterize_options(args, key, tmp_path):
-    proc = subprocess.run([sys.executable, "-m", "optimize", "characterize", "--out", str(tmp_path / "t"), *args],
+    proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "characterize", "--out", str(tmp_path / "t"), *args],
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 2, proc.stderr
     assert key in proc.stderr and "Traceback" not in proc.stderr
@@ -80,7 +80,7 @@ def test_bad_characterize_options(args, key, tmp_path):
 
 def test_characterize_names_a_missing_device(tmp_path):
     """A device the library does not define: ngspice's complaint becomes one clear line."""
-    proc = subprocess.run([sys.executable, "-m", "optimize", "characterize", "--out", str(tmp_path / "t"),
+    proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "characterize", "--out", str(tmp_path / "t"),
                            "--nmos", "sky130_fd_pr__nfet_99v9", "--lengths", "0.5"],
                           capture_output=True, text=True, timeout=300)
     assert proc.returncode == 1, proc.stderr

@@ -9,12 +9,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-import topologies
-from optimize.techfile import load, shipped
-from topologies.base import Conditions
-from topologies.compose import CompositionError, WithOutputStage
-from topologies.class_ab import ClassABOutput
-from topologies.evaluate import evaluate
+from ampfront import topologies
+from ampfront.topologies.process.techfile import load, shipped
+from ampfront.topologies.base import Conditions
+from ampfront.topologies.compose import CompositionError, WithOutputStage
+from ampfront.topologies.class_ab import ClassABOutput
+from ampfront.topologies.evaluate import evaluate
 from tests.helpers import random_designs
 
 LOADED = Conditions(vdd=1.8, c_load=2e-12, r_load=5e3, v_cm=0.9)

@@ -11,10 +11,10 @@ stage's DC current).
 import numpy as np
 import pytest
 
-import topologies
-from optimize.techfile import load, shipped
-from topologies.evaluate import evaluate
-from topologies.kcl import node_imbalance
+from ampfront import topologies
+from ampfront.topologies.process.techfile import load, shipped
+from ampfront.topologies.evaluate import evaluate
+from ampfront.topologies.kcl import node_imbalance
 from tests.helpers import DEMO_CONDITIONS, random_designs
 
 @pytest.mark.parametrize("technology", ["generic180", "sky130"])

@@ -13,9 +13,9 @@ import math
 import numpy as np
 import pytest
 
-from topologies.insight import gbw_dominant_pole
-from topologies.process import LevelOneDevice, SquareLaw
-from topologies.smallsignal import Circuit, loop_metrics
+from ampfront.topologies.insight import gbw_dominant_pole
+from ampfront.topologies.process import LevelOneDevice, SquareLaw
+from ampfront.topologies.smallsignal import Circuit, loop_metrics
 
 
 def book_process(with_lambda: bool = True) -> SquareLaw:

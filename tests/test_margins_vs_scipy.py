@@ -13,10 +13,10 @@ import pytest
 import scipy.linalg
 import scipy.optimize
 
-import topologies
-from topologies.evaluate import evaluate, small_signal
-from topologies.noise import BOLTZMANN, GAMMA_THERMAL
-from topologies.smallsignal import loop_metrics
+from ampfront import topologies
+from ampfront.topologies.evaluate import evaluate, small_signal
+from ampfront.topologies.noise import BOLTZMANN, GAMMA_THERMAL
+from ampfront.topologies.smallsignal import loop_metrics
 
 from .helpers import DEMO_CONDITIONS, generic180, random_designs
 

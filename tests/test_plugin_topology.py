@@ -11,8 +11,8 @@ import pytest
 PLUGIN = '''
 import numpy as np
 
-from topologies.base import Build, Element, Variable
-from topologies.stages import BiasBranch, MirrorPair, pair_variables
+from ampfront.topologies.base import Build, Element, Variable
+from ampfront.topologies.stages import BiasBranch, MirrorPair, pair_variables
 
 
 class DiodeLoadedPair:
@@ -52,12 +52,12 @@ def plugin_path(tmp_path, monkeypatch):
 
 
 def test_plugin_is_found_listed_and_optimized(plugin_path, tmp_path):
-    import topologies
-    from optimize.run import run_study
+    from ampfront import topologies
+    from ampfront.optimize.run import run_study
 
     assert "toy_resistor_ota" in topologies.available()
     env = {**os.environ, "PYTHONPATH": os.pathsep.join([str(plugin_path), os.environ.get("PYTHONPATH", "")])}
-    listing = subprocess.run([sys.executable, "-m", "optimize", "topologies"], capture_output=True, text=True,
+    listing = subprocess.run([sys.executable, "-m", "ampfront.optimize", "topologies"], capture_output=True, text=True,
                              env=env, timeout=120)
     assert "toy_resistor_ota" in listing.stdout and "r_out" in listing.stdout
     study = tmp_path / "toy.toml"

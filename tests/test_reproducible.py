@@ -3,7 +3,7 @@
 import json
 import shutil
 
-from optimize.run import run_study
+from ampfront.optimize.run import run_study
 
 from .conftest import DEMO
 

@@ -6,7 +6,7 @@ Reference: pymoo's ZDT1 and its analytic Pareto front (`ZDT1().pareto_front()`),
 from pymoo.indicators.igd import IGD
 from pymoo.problems import get_problem
 
-from optimize.search import algorithm_for, run_search
+from ampfront.optimize.search.engine import algorithm_for, run_search
 
 
 def test_zdt1_reaches_the_true_front():

@@ -12,8 +12,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from optimize.characterize import sky130_library
-from optimize.techfile import load, shipped
+from ampfront.optimize.simulator.characterize import sky130_library
+from ampfront.topologies.process.techfile import load, shipped
 
 K_T_Q_27C = 1.380649e-23 * 300.15 / 1.602176634e-19
 
@@ -116,7 +116,7 @@ def test_threshold_matches_the_pdk_documentation(polarity, l_um, documented):
     at the documented geometry (W = 7 um; the shipped tables use 1 um fingers, whose narrow-width threshold
     differs by tens of mV) and reads VT as the model's own threshold output (BSIM4 vth) at |VDS| = 50 mV,
     VSB = 0, with VGS in moderate inversion."""
-    from optimize.characterize import Grid, characterize_length
+    from ampfront.optimize.simulator.characterize import Grid, characterize_length
 
     grid = Grid(lengths=(l_um,), vgs=(0.6, 0.9, 0.05), vds=(0.05, 0.1), vsb=(0.0, 0.1), width=7.0)
     table = characterize_length(sky130_library("tt"), DEVICES[polarity], polarity, l_um, grid, 27.0)
@@ -130,7 +130,7 @@ def test_process_limits(tt):
     assert tt.l_min == pytest.approx(0.15e-6)
     assert tt.w_min == pytest.approx(0.42e-6)
     assert tt.finger_width >= tt.w_min
-    from topologies import available
+    from ampfront.topologies import available
 
     for topology in available().values():
         for v in topology.variables(tt):

@@ -15,8 +15,8 @@ sweep at mid-scale must match the model's DC gain within the small-signal bound.
 import pandas as pd
 import pytest
 
-from optimize.spice import simulate_swing
-from optimize.verify import BOUNDS, check_folder
+from ampfront.optimize.simulator.ngspice import simulate_swing
+from ampfront.optimize.simulator.check import BOUNDS, check_folder
 
 KIND = {"generic180": "square_law", "sky130": "gm_id_tables"}
 

@@ -8,7 +8,7 @@ margin 5 deg, supply current 3 %.
 import pandas as pd
 import pytest
 
-from optimize.verify import BOUNDS, check_folder
+from ampfront.optimize.simulator.check import BOUNDS, check_folder
 
 
 @pytest.mark.spice
@@ -39,7 +39,7 @@ def test_netlists_use_the_real_device_models(demo_run):
 def test_corner_designs_match_bsim4_at_their_temperature(corner, tmp_path):
     """The ss (125 degC) and ff (-40 degC) tables against the same corner's models, simulated at the
     corner's temperature (reference: SKY130 BSIM4 models in ngspice, bounds as above)."""
-    from optimize.run import run_study
+    from ampfront.optimize.run import run_study
 
     from .conftest import DEMO
 

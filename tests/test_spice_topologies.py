@@ -11,9 +11,9 @@ criterion): the model's saturated swing inside the swept one (50 mV slack), at m
 import pandas as pd
 import pytest
 
-import topologies
-from optimize.run import run_study
-from optimize.verify import check_folder
+from ampfront import topologies
+from ampfront.optimize.run import run_study
+from ampfront.optimize.simulator.check import check_folder
 
 STUDY = """
 title = "Reference buffer comparison"

@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from optimize.spice import simulate
+from ampfront.optimize.simulator.ngspice import simulate
 
 
 @pytest.mark.spice
@@ -64,7 +64,7 @@ def test_check_command_reports_agreement(square_law_run):
     demo_run = square_law_run
     from typer.testing import CliRunner
 
-    from optimize.cli import app
+    from ampfront.optimize.cli import app
 
     result = CliRunner().invoke(app, ["check", str(demo_run), "--designs", "3"])
     assert result.exit_code == 0, result.output

@@ -5,8 +5,8 @@ import pickle
 import numpy as np
 import pytest
 
-import topologies
-from topologies.evaluate import evaluate
+from ampfront import topologies
+from ampfront.topologies.evaluate import evaluate
 
 from .helpers import DEMO_CONDITIONS, generic180, random_designs
 
@@ -32,7 +32,7 @@ def test_shapes_finiteness_and_determinism(name):
     valid = np.isfinite(metrics["gain_db"])
     assert (metrics["power_w"][valid] > 0).all() and (metrics["area_um2"][valid] > 0).all()
     # Non-inverting from inp to out, or the testbench's DC feedback would latch instead of following.
-    from topologies.evaluate import small_signal
+    from ampfront.topologies.evaluate import small_signal
 
     assert (small_signal(build, DEMO_CONDITIONS).dc_gain("out")[valid] > -1e-9).all()
     assert len({d.role for d in build.devices}) == len(build.devices)

@@ -2,9 +2,9 @@
 
 import numpy as np
 
-from topologies.evaluate import evaluate
-from topologies.simple_ota import SimpleOTA
-from topologies.telescopic import TelescopicCascode
+from ampfront.topologies.evaluate import evaluate
+from ampfront.topologies.simple_ota import SimpleOTA
+from ampfront.topologies.telescopic import TelescopicCascode
 
 from .helpers import DEMO_CONDITIONS, generic180, random_designs
 
@@ -35,7 +35,7 @@ def test_telescopic_gain_is_of_order_gm_ro_squared():
 def test_folded_cascode_burns_more_current_than_telescopic_for_the_same_input_gm():
     """Common practice: the folded cascode's folding sources carry the input pair's current plus the
     cascode branch current, so at equal input gm it draws more supply current than a telescopic."""
-    from topologies.folded import FoldedCascode
+    from ampfront.topologies.folded import FoldedCascode
 
     tech = generic180()
     x = random_designs(FoldedCascode(), tech, 300, seed=4)

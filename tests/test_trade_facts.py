@@ -3,10 +3,10 @@
 import numpy as np
 import pytest
 
-from topologies.evaluate import evaluate
-from topologies.insight import closed_loop_gain_error, two_pole_phase_margin
-from topologies.smallsignal import Circuit, loop_metrics
-from topologies.two_stage import TwoStageMiller
+from ampfront.topologies.evaluate import evaluate
+from ampfront.topologies.insight import closed_loop_gain_error, two_pole_phase_margin
+from ampfront.topologies.smallsignal import Circuit, loop_metrics
+from ampfront.topologies.two_stage import TwoStageMiller
 
 from .helpers import DEMO_CONDITIONS, generic180, random_designs
 
@@ -69,8 +69,8 @@ def test_white_noise_of_a_mirror_loaded_pair_is_the_hand_formula():
     """Common practice: a five-transistor OTA's input white noise density squared is
     2 * 4kT gamma / gm_in * (1 + gm_load / gm_in); tail and bias noise are common mode and cancel. The
     solver's noise (every source carried to the output) must agree."""
-    from topologies.insight import pair_thermal_noise
-    from topologies.simple_ota import SimpleOTA
+    from ampfront.topologies.insight import pair_thermal_noise
+    from ampfront.topologies.simple_ota import SimpleOTA
 
     tech = generic180()
     x = random_designs(SimpleOTA(), tech, 2000, seed=9)

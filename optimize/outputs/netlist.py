@@ -8,8 +8,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from topologies.base import PORTS, Build, Conditions
-from topologies.process.base import Technology
+from ampfront.topologies.base import PORTS, Build, Conditions
+from ampfront.topologies.process.base import Technology
 
 RESULT_TAG = "ampfront:"  # testbench result lines start with this, so a parser can find them
 

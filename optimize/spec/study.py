@@ -11,11 +11,11 @@ from pathlib import Path
 
 import numpy as np
 
-from topologies.base import Conditions
+from ampfront.topologies.base import Conditions
 
-from .errors import InputError
-from .schema import Field, check_keys, read_table, read_toml, suggest
-from .techfile import corners, resolve
+from ampfront.topologies.errors import InputError
+from ampfront.topologies.schema import Field, check_keys, read_table, read_toml, suggest
+from ampfront.topologies.process.techfile import corners, resolve
 
 DEFAULT_TECHNOLOGY = "sky130"   # its default corner: tt, 27 degC
 
@@ -97,7 +97,7 @@ class Study:
 
 def _input_cm(source: str, raw, supply: float) -> tuple[float, float]:
     field = Field("V", positive=False)
-    from .schema import read_value
+    from ampfront.topologies.schema import read_value
 
     if raw is None:
         return supply / 2, supply / 2
@@ -118,7 +118,7 @@ DEFAULT_NOISE_BAND = (1.0, 1e6)   # Hz
 
 
 def _noise_band(source: str, raw) -> tuple[float, float]:
-    from .schema import read_value
+    from ampfront.topologies.schema import read_value
 
     if raw is None:
         return DEFAULT_NOISE_BAND

@@ -11,8 +11,8 @@ from typing import Callable
 
 def _worker(study, name: str, progress_queue):
     # Imported here: the worker is a fresh (spawned) interpreter.
-    from .run import NoFeasibleDesign, search_topology
-    from .techfile import load
+    from ampfront.optimize.run import NoFeasibleDesign, search_topology
+    from ampfront.topologies.process.techfile import load
 
     tech = load(study.technology, study.corner)   # loaded in the worker: tables are not pickled across
     try:

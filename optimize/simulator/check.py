@@ -7,9 +7,9 @@ from pathlib import Path
 
 import pandas as pd
 
-from .errors import InputError
-from .schema import read_toml
-from .spice import simulate, simulate_swing
+from ampfront.topologies.errors import InputError
+from ampfront.topologies.schema import read_toml
+from ampfront.optimize.simulator.ngspice import simulate, simulate_swing
 
 # Agreement expected between model and simulator. Square law against ngspice level 1 is the same equations,
 # so only numerics separate them; tables against BSIM4 add interpolation and the two-terminal capacitance

@@ -5,11 +5,11 @@ from __future__ import annotations
 import numpy as np
 from pymoo.core.problem import Problem
 
-from topologies import evaluate
-from topologies.base import Topology
-from topologies.process.base import Technology
+from ampfront.topologies import evaluate
+from ampfront.topologies.base import Topology
+from ampfront.topologies.process.base import Technology
 
-from .study import OBJECTIVES, Study
+from ampfront.optimize.spec.study import OBJECTIVES, Study
 
 _BAD = 1e9  # stands in for a non-finite objective or violation (no crossing, dead device), so it loses
 

@@ -6,11 +6,11 @@ import hashlib
 import json
 from pathlib import Path
 
-from topologies.process import DATA_DIR, LevelOneDevice, SquareLaw, Technology
-from topologies.process.tables import DeviceTable, TableProcess
+from ampfront.topologies.process import DATA_DIR, LevelOneDevice, SquareLaw, Technology
+from ampfront.topologies.process.tables import DeviceTable, TableProcess
 
-from .errors import InputError
-from .schema import Field, read_table, read_toml, suggest
+from ..errors import InputError
+from ..schema import Field, read_table, read_toml, suggest
 
 _SQUARE_LAW_TOP = {
     "name": Field("str", True), "kind": Field("str", True), "description": Field("str"),
@@ -93,7 +93,7 @@ def load(path: Path, corner: str | None = None) -> Technology:
 
 
 def _load_tables(path: Path, raw: dict, corner: str | None) -> Technology:
-    from .characterize import sky130_library
+    from ampfront.optimize.simulator.characterize import sky130_library
 
     source = str(path)
     top = read_table(source, "", {k: v for k, v in raw.items() if k != "corners"}, _TABLE_TOP)

@@ -7,8 +7,8 @@ import html
 import pandas as pd
 import plotly.graph_objects as go
 
-from .study import OBJECTIVES, Study
-from .units import eng
+from ampfront.optimize.spec.study import OBJECTIVES, Study
+from ampfront.topologies.units import eng
 
 CAUTION = ("Pre-layout estimates from analytic device models. Confirm every design with the foundry's models, "
            "sign-off simulation across corners and the team's design review before committing to it.")

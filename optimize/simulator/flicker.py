@@ -14,9 +14,9 @@ from pathlib import Path
 
 import numpy as np
 
-from topologies.process.tables import DeviceTable
+from ampfront.topologies.process.tables import DeviceTable
 
-from .characterize import ModelLibrary, _run
+from ampfront.optimize.simulator.characterize import ModelLibrary, _run
 
 FORMAT = "ampfront-flicker/1"
 GM_ID_LEVELS = (5.0, 10.0, 15.0, 20.0)

@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .netlist import RESULT_TAG
+from ampfront.optimize.outputs.netlist import RESULT_TAG
 
 # What a testbench prints, in the units it prints them, and the front.csv column each checks.
 MEASURED = {"gain_db": ("gain_db", 1.0), "gbw_hz": ("gbw_hz", 1.0),

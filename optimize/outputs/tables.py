@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
-from topologies.base import Build
+from ampfront.topologies.base import Build
 
 LEAD_COLUMNS = ["topology", "design", "gain_db", "gbw_hz", "phase_margin_deg", "gain_margin_db", "power_w",
                 "area_um2", "slew_v_per_us", "swing_v", "supply_current_a"]

@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError
+from ampfront.topologies.errors import InputError
 
 QUANTITIES = ("id", "gm", "gds", "gmbs", "cgg", "cgd", "cgs", "cdg", "cdd", "cds", "csg", "csd", "css",
               "capbd", "capbs", "vth", "vdsat")
