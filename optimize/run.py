@@ -1,10 +1,11 @@
-"""A whole study: search every listed topology, then write report, front table, netlists and manifest."""
+"""A whole study: check where it will write, search every listed topology, then write the report, the
+front table, the netlists and the manifest into a staged folder moved into place only when complete."""
 
 from __future__ import annotations
 
 import os
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Callable
 
@@ -12,143 +13,114 @@ import numpy as np
 import pandas as pd
 
 from ampfront import topologies
-
 from ampfront.optimize.outputs import netlist, report
-from ampfront.optimize.outputs.tables import device_table, front_table, staged_directory, versions, write_json
-from ampfront.optimize.search.problem import DesignProblem, objective_matrix
-from ampfront.optimize.search.engine import Progress, run_search
+from ampfront.optimize.outputs.folder import TOOL_MARK, check_destination, staged_directory
+from ampfront.optimize.outputs.tables import device_table, versions, write_json
+from ampfront.optimize.search.engine import Progress
+from ampfront.optimize.search.merge import merged_front
+from ampfront.optimize.search.outcome import Infeasible, Outcome, TopologyFront
+from ampfront.optimize.search.single import search_topology
 from ampfront.optimize.spec.study import Study, load_study
 from ampfront.topologies.process.techfile import file_hash, load
 
-
-class NoFeasibleDesign(Exception):
-    """The search found no design meeting the spec; the message says which constraints bind, by how much."""
+MANIFEST_FORMAT = "ampfront-result/2"
 
 
 @dataclass
-class TopologyFront:
-    name: str
-    table: pd.DataFrame
-    build: object           # the front designs' Build, reused for the netlists
+class RunSummary:
+    out: Path
+    technology: str
+    seed: int
     evaluations: int
-    history: list
+    front_designs: int
+    wall_s: float
+    infeasible: dict[str, Infeasible] = field(default_factory=dict)
+    warnings: list[str] = field(default_factory=list)
+
+    @property
+    def feasible(self) -> bool:
+        return self.front_designs > 0
 
 
-def diagnose(problem: DesignProblem, X: np.ndarray) -> str:
-    metrics, _ = problem.metrics(X)
-    violations = np.column_stack([np.maximum(c.violation(metrics), 0) for c in problem.study.constraints])
-    best = int(np.argmin(violations.sum(axis=1)))
-    missed = []
-    for j, c in enumerate(problem.study.constraints):
-        if violations[best, j] > 0:
-            value = metrics[c.metric][best]
-            relation = "<" if c.sense == "min" else ">"
-            missed.append(f"{c.name} ({c.metric} {value:.4g} {relation} {c.bound:.4g} {c.unit})")
-    return (f"{problem.topology.name}: no design met the spec; the closest one misses "
-            + "; ".join(missed))
-
-
-def merged_front(table: pd.DataFrame, objectives) -> np.ndarray:
-    """True for designs no design of any topology dominates: who wins where."""
-    from pymoo.util.nds.non_dominated_sorting import NonDominatedSorting
-
-    metrics = {column: table[column].to_numpy() for column in table.columns}
-    F = objective_matrix(metrics, objectives)
-    mask = np.zeros(len(table), bool)
-    mask[NonDominatedSorting().do(F, only_non_dominated_front=True)] = True
-    return mask
-
-
-def search_topology(study: Study, tech, name: str, progress: Progress | None) -> TopologyFront:
+def write_netlists(folder: Path, study: Study, tech, name: str, table: pd.DataFrame, build) -> None:
     topology = topologies.available()[name]
-    problem = DesignProblem(topology, tech, study)
-    result = run_search(problem, study.population, study.generations, study.seed, progress)
-    if not result.feasible:
-        raise NoFeasibleDesign(diagnose(problem, result.X))
-    x = problem.decode(result.X)
-    metrics, build = topologies.evaluate(topology, x, tech, study.conditions)
-    names = [f"{topology.prefix}_{i + 1:03d}" for i in range(len(result.X))]
-    table = front_table(name, names, metrics, build, x, study.constraints)
-    return TopologyFront(name, table, build, result.evaluations, result.history)
-
-
-def write_netlists(folder: Path, study: Study, tech, front: TopologyFront) -> None:
-    topology = topologies.available()[front.name]
-    build = front.build
     folder.mkdir(exist_ok=True)
     if tech.spice_init:
         # ngspice reads .spiceinit from the folder it starts in: the testbenches run as they are from here.
         (folder / ".spiceinit").write_text("\n".join(tech.spice_init) + "\n")
-    for i, design in enumerate(front.table["design"]):
-        # The operating point rides along as comments, so the netlist alone says how each device is biased.
-        op = "\n".join("* " + line for line in device_table(build, i).to_string(index=False).splitlines())
-        (folder / f"{design}.sp").write_text(netlist.subckt(build, i, tech, design, topology.title, op))
-        (folder / f"{design}_tb.sp").write_text(
-            netlist.testbench(build, i, tech, study.conditions, design, f"{design}.sp"))
-        (folder / f"{design}_swing.sp").write_text(netlist.swing_testbench(
-            build, i, tech, study.conditions, design, f"{design}.sp", f"{design}_swing.dat"))
+    for i, design in enumerate(table["design"]):
+        for file, text in netlist.design_files(build, i, tech, study.conditions, design, topology.title).items():
+            (folder / file).write_text(text)
 
 
-def run_study(study_path: Path, out: Path, seed: int | None = None,
-              progress_factory: Callable[[str, int], Progress] | None = None, workers: int | None = None) -> dict:
-    """Run a study; `workers` processes search topologies side by side (default: one per core)."""
-    started = time.perf_counter()
-    study = load_study(study_path, topologies.available())
-    if seed is not None:
-        study = Study(**{**study.__dict__, "seed": seed})
-    tech = load(study.technology, study.corner)
-    fronts, misses = [], {}
-    workers = workers or min(len(study.topologies), os.cpu_count() or 1)
+def _search(study: Study, tech, progress_factory, workers: int) -> dict[str, Outcome]:
     if workers > 1:
         from ampfront.optimize.search.fanout import search_all
 
-        outcomes = search_all(study, progress_factory, workers)
-    else:
-        outcomes = {}
-        for name in study.topologies:
-            progress = progress_factory(name, study.generations) if progress_factory else None
-            try:
-                outcomes[name] = search_topology(study, tech, name, progress)
-            except NoFeasibleDesign as missed:
-                outcomes[name] = str(missed)
+        return search_all(study, progress_factory, workers)
+    outcomes = {}
     for name in study.topologies:
-        # One topology that cannot meet the spec is an answer too; the study goes on without it.
-        if isinstance(outcomes[name], str):
-            misses[name] = outcomes[name]
-        else:
-            fronts.append(outcomes[name])
-    if not fronts:
-        raise NoFeasibleDesign("; ".join(misses.values()))
-    table = pd.concat([f.table for f in fronts], ignore_index=True).copy()
-    table.insert(2, "on_merged_front", merged_front(table, study.objectives))
-    evaluations = sum(f.evaluations for f in fronts)
-    wall = time.perf_counter() - started
-    summary = {"technology": tech.name, "seed": study.seed, "population": study.population,
-               "generations": study.generations, "designs evaluated": evaluations,
-               "front designs": len(table), "wall time": f"{wall:.1f} s"}
-    summary.update({f"{name} (no feasible design)": text.split(": ", 1)[1] for name, text in misses.items()})
-    missing_models = [line[2:] for line in getattr(tech, "spice_library", ()) if "not found" in line]
-    if missing_models:
-        summary["warning"] = f"testbenches cannot run yet: {missing_models[0]}"
-    with staged_directory(out) as stage:
+        progress = progress_factory(name, study.generations) if progress_factory else None
+        outcomes[name] = search_topology(study, tech, name, progress)
+    return outcomes
+
+
+def run_study(study_path: Path, out: Path, seed: int | None = None,
+              progress_factory: Callable[[str, int], Progress] | None = None, workers: int | None = None,
+              overwrite: bool = False) -> RunSummary:
+    """Run a study; `workers` processes search topologies side by side (default: one per core).
+
+    Everything that can be refused is refused before the search: the study, the technology and the output
+    folder (ampfront replaces only an earlier result of its own, and only when `overwrite`)."""
+    started = time.perf_counter()
+    study = load_study(study_path, topologies.available())
+    if seed is not None:
+        study = replace(study, seed=seed)
+    final = check_destination(out, overwrite, protect=(study.path, study.technology))
+    tech = load(study.technology, study.corner)
+    workers = workers or min(len(study.topologies), os.cpu_count() or 1)
+    outcomes = _search(study, tech, progress_factory, workers)
+    fronts = [o for o in outcomes.values() if isinstance(o, TopologyFront)]
+    misses = {n: o for n, o in outcomes.items() if isinstance(o, Infeasible)}
+    chosen = fronts or list(misses.values())
+    tables = [f.table if isinstance(f, TopologyFront) else f.closest for f in chosen]
+    table = pd.concat(tables, ignore_index=True).copy()
+    table.insert(2, "meets_spec", bool(fronts))
+    table.insert(3, "on_merged_front", merged_front(table, study.objectives) if fronts else False)
+    evaluations = sum(o.evaluations for o in outcomes.values())
+    summary = RunSummary(final, tech.name, study.seed, evaluations, len(table) if fronts else 0, 0.0, misses)
+    if getattr(tech, "models_missing", None):
+        summary.warnings.append(f"testbenches cannot run yet: {tech.models_missing}")
+    with staged_directory(final) as stage:
         table.to_csv(stage / "front.csv", index=False, float_format="%.9g")
+        summary.wall_s = time.perf_counter() - started
         (stage / "report.html").write_text(report.render(table, study, tech.name, summary), encoding="utf-8")
-        for front in fronts:
-            write_netlists(stage / "netlists", study, tech, front)
-        c = study.conditions
-        write_json(stage / "manifest.json", {
-            "tool": "ampfront", "versions": versions(), "seed": study.seed,
-            "study": {"file": str(study.path), "sha256": study.digest, "title": study.title},
-            # The conditions every figure and testbench assumes, SI units.
-            "conditions": {"vdd_v": c.vdd, "c_load_f": c.c_load,
-                           "r_load_ohm": None if np.isinf(c.r_load) else c.r_load, "v_cm_v": c.v_cm,
-                           "noise_band_hz": list(c.noise_band)},
-            "technology": {"name": tech.name, "file": str(study.technology), "corner": study.corner,
-                           "sha256": file_hash(study.technology, study.corner)},
-            "topologies": list(study.topologies), "objectives": list(study.objectives),
-            "population": study.population, "generations": study.generations,
-            "evaluations": evaluations, "wall_time_s": round(time.perf_counter() - started, 3),
-            "front_designs": len(table), "infeasible_topologies": misses,
-            "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
-        })
+        for outcome in chosen:
+            rows = table[table["topology"] == outcome.name]
+            write_netlists(stage / "netlists", study, tech, outcome.name, rows, outcome.build)
+        write_json(stage / "manifest.json", _manifest(study, tech, summary, time.perf_counter() - started))
+    summary.wall_s = time.perf_counter() - started
     return summary
+
+
+def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:
+    c = study.conditions
+    return {
+        "tool": TOOL_MARK, "format": MANIFEST_FORMAT, "complete": True, "feasible": summary.feasible,
+        "versions": versions(), "seed": study.seed,
+        # The study's own text rides along, so `ampfront check` can rebuild every design and testbench
+        # itself instead of running what the folder holds.
+        "study": {"file": str(study.path), "sha256": study.digest, "title": study.title, "text": study.text},
+        # The conditions every figure and testbench assumes, SI units.
+        "conditions": {"vdd_v": c.vdd, "c_load_f": c.c_load,
+                       "r_load_ohm": None if np.isinf(c.r_load) else c.r_load, "v_cm_v": c.v_cm,
+                       "noise_band_hz": list(c.noise_band)},
+        "technology": {"name": tech.name, "file": str(study.technology), "corner": study.corner,
+                       "sha256": file_hash(study.technology, study.corner)},
+        "topologies": list(study.topologies), "objectives": list(study.objectives),
+        "population": study.population, "generations": study.generations,
+        "evaluations": summary.evaluations, "wall_time_s": round(wall, 3),
+        "front_designs": summary.front_designs,
+        "infeasible_topologies": {n: o.describe() for n, o in summary.infeasible.items()},
+        "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+    }

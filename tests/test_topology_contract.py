@@ -22,15 +22,15 @@ def test_shapes_finiteness_and_determinism(name):
     assert all(v.low < v.high and (v.low > 0 or not v.log) for v in variables)
     x = random_designs(topology, tech, 64, seed=2)
     metrics, build = evaluate(topology, x, tech, DEMO_CONDITIONS)
-    for key in ("gain_db", "gbw_hz", "phase_margin_deg", "power_w", "area_um2", "slew_v_per_us", "swing_v",
+    for key in ("gain_db", "gbw_hz", "phase_margin_deg", "power_w", "area_m2", "slew_v_per_s", "swing_v",
                 "cm_low_v", "cm_high_v", "sat_min_v"):
         assert metrics[key].shape == (64,), key
     # A design the topology cannot bias (a cascode gate below threshold, say) reads NaN, which the search
     # treats as violating every constraint; most random designs must still evaluate.
-    for key in ("gain_db", "power_w", "area_um2", "slew_v_per_us", "sat_min_v"):
+    for key in ("gain_db", "power_w", "area_m2", "slew_v_per_s", "sat_min_v"):
         assert np.isfinite(metrics[key]).mean() > 0.6, key
     valid = np.isfinite(metrics["gain_db"])
-    assert (metrics["power_w"][valid] > 0).all() and (metrics["area_um2"][valid] > 0).all()
+    assert (metrics["power_w"][valid] > 0).all() and (metrics["area_m2"][valid] > 0).all()
     # Non-inverting from inp to out, or the testbench's DC feedback would latch instead of following.
     from ampfront.topologies.evaluate import small_signal
 

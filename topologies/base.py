@@ -88,26 +88,74 @@ class Build:
 
 @runtime_checkable
 class Topology(Protocol):
+    """A core amplifier. `reports` names every figure `build` puts in Build.metrics (catalog metric names,
+    at least catalog.CORE_REPORTS, plus any `sat_<role>_v` headroom); the registry refuses a topology whose
+    declaration falls short, and the evaluator one whose Build does not keep it."""
+
     name: str       # registry key, snake_case
     title: str      # human-readable name for reports
     prefix: str     # short prefix of design identifiers
-    # Optional: `single_stage = True` marks a core whose only high-impedance node is `out`, so an output
-    # stage may follow it (see topologies.compose); such a core must honour `Conditions.out_level`.
+    # True for a core whose only high-impedance node is `out` and which honours `Conditions.out_level` and
+    # `Conditions.i_out`: an output stage may follow it (see topologies.compose).
+    single_stage: bool
+    reports: frozenset[str]
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]: ...
 
     def build(self, x: dict[str, np.ndarray], tech: Technology, cond: Conditions) -> Build: ...
 
 
+@dataclass
+class StageBuild:
+    """What an output stage knows about itself before its core is built, and what it keeps for `metrics`.
+
+    `state` is the stage's own typed record (its solved levels and sized widths); only the stage reads it."""
+
+    devices: list[Device]
+    elements: list[Element]
+    supply_current: np.ndarray
+    input_level: np.ndarray         # DC level the core must hold at the stage's drive node, V
+    input_load: np.ndarray          # capacitance the core charges when slewing, F
+    input_current: np.ndarray       # DC current the stage pushes into the core's output, A
+    state: object
+
+
+@runtime_checkable
+class OutputStage(Protocol):
+    """A stage that follows any single-stage core (see topologies.compose). The core's `out` is renamed to
+    `drive`; `nodes` are the stage's own node names (a core may not use them). `reports` names the figures
+    `metrics` returns (at least catalog.STAGE_REPORTS), which replace the core's."""
+
+    suffix: str     # appended to the core's name: <core>_<suffix>
+    title: str
+    drive: str
+    nodes: tuple[str, ...]
+    reports: frozenset[str]
+
+    def variables(self, tech: Technology) -> tuple[Variable, ...]: ...
+
+    def build(self, x: dict[str, np.ndarray], tech: Technology, cond: Conditions) -> StageBuild: ...
+
+    def metrics(self, stage: StageBuild, core: dict[str, np.ndarray], tech: Technology,
+                cond: Conditions) -> dict[str, np.ndarray]: ...
+
+
 def snap_length(l, tech: Technology, grid: float = 5e-9):
     """Drawn lengths: the technology's characterized lengths when it has them (tables are exact there and
     interpolate only in bias), otherwise a 5 nm grid within the technology's limits."""
-    lengths = getattr(tech, "length_grid", None)
+    l = np.asarray(l, float)
+    # A length that is no length (NaN, infinite, zero or negative) stays NaN, so its design is infeasible
+    # rather than quietly drawn at the shortest length.
+    bad = ~(np.isfinite(l) & (l > 0))
+    safe = np.where(bad, tech.l_min, l)
+    lengths = tech.length_grid
     if lengths is not None:
         logs = np.log(lengths)
-        k = np.abs(np.log(np.asarray(l, float))[..., None] - logs).argmin(axis=-1)
-        return lengths[k]
-    return np.clip(np.round(np.asarray(l) / grid) * grid, tech.l_min, tech.l_max)
+        k = np.abs(np.log(safe)[..., None] - logs).argmin(axis=-1)
+        snapped = lengths[k]
+    else:
+        snapped = np.clip(np.round(safe / grid) * grid, tech.l_min, tech.l_max)
+    return np.where(bad, np.nan, snapped)
 
 
 def length_variable(name: str, tech: Technology, doc: str, span: float = 20.0) -> Variable:

@@ -11,11 +11,11 @@ floating control carries the signal to the pull-down gate.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, replace
 
 import numpy as np
 
-from .base import Conditions, Device, Element, Variable, gm_id_variable, length_variable, snap_length
+from .base import Conditions, Element, StageBuild, Variable, gm_id_variable, length_variable, snap_length
 from .numeric import bisect_decreasing
 from .process.base import Technology, diode_vgs
 from .stages import device
@@ -23,17 +23,6 @@ from .stages import device
 # Nodes of the stage; the core's output is renamed to DRIVE.
 DRIVE = "ab_gp"
 NODES = (DRIVE, "ab_gn", "ab_rp", "ab_vbp", "ab_rn", "ab_vbn", "ab_czp", "ab_czn")
-
-
-@dataclass
-class StageBuild:
-    devices: list[Device]
-    elements: list[Element]
-    supply_current: np.ndarray
-    input_level: np.ndarray         # DC level the core must hold at DRIVE, V
-    input_load: np.ndarray          # capacitance the core charges when slewing, F
-    input_current: np.ndarray       # DC current the stage pushes into the core's output, A
-    internals: dict[str, np.ndarray] = field(default_factory=dict)
 
 
 # Table technologies start their VGS axis near 0.15 V and give NaN below; a gate driven that low carries
@@ -47,10 +36,41 @@ def _off_is_zero(current, vgs):
     return np.where(np.isnan(current) & (vgs < OFF_GATE), 0.0, current)
 
 
+@dataclass(frozen=True)
+class ClassABState:
+    """The stage as sized and solved at the quiescent point: what `metrics` needs to drive it to its limits."""
+
+    vdd: float
+    i_q: np.ndarray         # quiescent current of the output devices, A
+    i_src: np.ndarray       # current of the floating control's source into the pull-up gate, A
+    gn: np.ndarray          # quiescent pull-down gate level, V
+    vbp: np.ndarray         # gate levels of the floating pMOS and nMOS control devices, V
+    vbn: np.ndarray
+    rn: np.ndarray          # gate level of the floating control's sink, V
+    w_up: np.ndarray        # output devices, m
+    w_dn: np.ndarray
+    l_out: np.ndarray
+    w_fp: np.ndarray        # floating control devices, m
+    w_fn: np.ndarray
+    l_float: np.ndarray
+    w_sink: np.ndarray
+
+    def float_balance(self, tech: Technology, gp, gn):
+        """Current the floating control passes into the pull-down gate minus what the sink takes."""
+        zero = np.zeros_like(self.i_q)
+        v = np.maximum(gp - gn, 1e-4)
+        return (_off_is_zero(tech.current("p", self.w_fp, self.l_float, gp - self.vbp, v, self.vdd - gp),
+                             gp - self.vbp)
+                + _off_is_zero(tech.current("n", self.w_fn, self.l_float, self.vbn - gn, v, gn), self.vbn - gn)
+                - tech.current("n", self.w_sink, self.l_out, self.rn, gn, zero))
+
+
 class ClassABOutput:
     suffix = "ab"
     title = "class-AB output"
     drive, nodes = DRIVE, NODES
+    reports = frozenset({"sat_ab_up_reference_v", "sat_ab_down_reference_v", "slew_v_per_s", "out_high_v",
+                         "out_low_v", "quiescent_out_a", "peak_source_a", "peak_sink_a", "min_device_current_a"})
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         return (
@@ -89,12 +109,11 @@ class ClassABOutput:
         rn = diode_vgs(tech, "n", w_rn, l_out, i_ref)
         vbn = rn + diode_vgs(tech, "n", w_fn, l_fl, i_ref, rn)
 
+        state = ClassABState(vdd=vdd, i_q=iq, i_src=zero, gn=zero, vbp=vbp, vbn=vbn, rn=rn, w_up=w_up, w_dn=w_dn,
+                             l_out=l_out, w_fp=w_fp, w_fn=w_fn, l_float=l_fl, w_sink=w_snk)
+
         def float_balance(gp, gn):
-            """Current the floating control passes into the pull-down gate minus what the sink takes."""
-            v = np.maximum(gp - gn, 1e-4)
-            return (_off_is_zero(tech.current("p", w_fp, l_fl, gp - vbp, v, vdd - gp), gp - vbp)
-                    + _off_is_zero(tech.current("n", w_fn, l_fl, vbn - gn, v, gn), vbn - gn)
-                    - tech.current("n", w_snk, l_out, rn, gn, zero))
+            return state.float_balance(tech, gp, gn)
 
         def gate_up(gn):
             """Pull-up gate level that balances the pull-down's current with the output at vout."""
@@ -139,26 +158,24 @@ class ClassABOutput:
             Element("C", "ab_miller_down", "ab_czn", "out", half_cc),
         ]
         i_q = devices[0].op.id
-        internals = {"i_q": i_q, "i_src": i_src, "gn": gn, "vbp": vbp, "vbn": vbn, "w_up": w_up, "w_dn": w_dn,
-                     "l_out": l_out, "float_balance": float_balance}
-        return StageBuild(devices, elements, i_q + i_src + 2 * i_ref, gp, half_cc, i_src - i_snk, internals)
+        state = replace(state, i_q=i_q, i_src=i_src, gn=gn)
+        return StageBuild(devices, elements, i_q + i_src + 2 * i_ref, gp, half_cc, i_src - i_snk, state)
 
     def metrics(self, stage: StageBuild, core: dict[str, np.ndarray], tech: Technology, cond: Conditions):
         """The stage's figures given the range its core can drive the pull-up gate over while saturated."""
         vdd, vcm = cond.vdd, cond.v_cm
-        s = stage.internals
-        zero = np.zeros_like(s["i_q"])
-        w_up, w_dn, l = s["w_up"], s["w_dn"], s["l_out"]
+        s: ClassABState = stage.state
+        zero = np.zeros_like(s.i_q)
+        w_up, w_dn, l = s.w_up, s.w_dn, s.l_out
         gp_low, gp_high = core["out_low_v"], core["out_high_v"]
         # Pull-down gate when the core drives the pull-up gate to either end of its range. Past the model's
         # range (control devices below 50 mV or the sink in deep triode) the bounds stay conservative: the
         # pull-down gate cannot rise above the pull-up gate it follows, nor above its quiescent level, when
         # the core pulls down; and the largest balanced level still on the table is a lower bound when the
         # core pulls up.
-        gn_low = bisect_decreasing(lambda g: s["float_balance"](gp_low, g), zero + 0.02, gp_low, 24)
-        gn_low = np.where(np.isfinite(s["float_balance"](gp_low, gn_low)), gn_low,
-                          np.minimum(gp_low, s["gn"]))
-        gn_high = bisect_decreasing(lambda g: s["float_balance"](gp_high, g), zero + 0.02, gp_high, 24)
+        gn_low = bisect_decreasing(lambda g: s.float_balance(tech, gp_low, g), zero + 0.02, gp_low, 24)
+        gn_low = np.where(np.isfinite(s.float_balance(tech, gp_low, gn_low)), gn_low, np.minimum(gp_low, s.gn))
+        gn_high = bisect_decreasing(lambda g: s.float_balance(tech, gp_high, g), zero + 0.02, gp_high, 24)
 
         def up(vsg, v):
             return _off_is_zero(tech.current("p", w_up, l, vsg, vdd - v, zero), vsg)
@@ -173,7 +190,7 @@ class ClassABOutput:
 
         # The conducting device carries the load plus what the other still draws, and never less than the
         # quiescent current: the floating control only raises it from there as the load grows.
-        floor = s["i_q"]
+        floor = s.i_q
 
         def high_room(v):
             # The pull-up must carry that current saturated, at a gate drive the core can reach.
@@ -191,17 +208,16 @@ class ClassABOutput:
         out_high = bisect_decreasing(high_room, vout, zero + vdd, 20)
         out_low = bisect_decreasing(lambda v: -low_room(v), zero, vout, 20, nan_above=vout)
         c_total = cond.c_load + 2 * stage.input_load
-        slew = np.minimum.reduce([core["slew_v_per_us"] * 1e6, s["i_src"] / stage.input_load,
+        slew = np.minimum.reduce([core["slew_v_per_s"], s.i_src / stage.input_load,
                                   np.minimum(peak_source, peak_sink) / c_total])
         return {
             # The reference sources of the bias stacks need room to be real current sources.
-            "sat_ab_up_reference_v": s["vbp"] - REFERENCE_HEADROOM,
-            "sat_ab_down_reference_v": vdd - s["vbn"] - REFERENCE_HEADROOM,
-            "slew_v_per_us": slew * 1e-6,
+            "sat_ab_up_reference_v": s.vbp - REFERENCE_HEADROOM,
+            "sat_ab_down_reference_v": vdd - s.vbn - REFERENCE_HEADROOM,
+            "slew_v_per_s": slew,
             "out_high_v": out_high,
             "out_low_v": out_low,
-            "swing_v": out_high - out_low,
-            "quiescent_out_a": s["i_q"],
+            "quiescent_out_a": s.i_q,
             "peak_source_a": peak_source,
             "peak_sink_a": peak_sink,
             "min_device_current_a": np.minimum(down(gn_low, vout), up(vdd - gp_high, vout)),

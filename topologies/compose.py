@@ -12,22 +12,27 @@ from dataclasses import replace
 
 import numpy as np
 
-from .base import Build, Conditions, Topology, Variable
+from .base import Build, Conditions, OutputStage, Topology, Variable
+from .errors import PluginError
 from .process.base import Technology
 
+# Figures that describe the core's own output node, which the stage's figures replace.
+_REPLACED = frozenset({"gbw_hand_hz"})
 
-class CompositionError(Exception):
+
+class CompositionError(PluginError):
     """A core and an output stage that cannot be joined (shared variable or node names)."""
 
 
 class WithOutputStage:
     single_stage = False
 
-    def __init__(self, core: Topology, stage, title: str | None = None):
+    def __init__(self, core: Topology, stage: OutputStage, title: str | None = None):
         self.core, self.stage = core, stage
         self.name = f"{core.name}_{stage.suffix}"
         self.title = title or f"{core.title} + {stage.title}"
         self.prefix = f"{core.prefix}{stage.suffix}"
+        self.reports = (frozenset(core.reports) - _REPLACED) | frozenset(stage.reports)
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         core, stage = self.core.variables(tech), self.stage.variables(tech)
@@ -48,8 +53,7 @@ class WithOutputStage:
             raise CompositionError(f"{self.name}: the core already uses node names {sorted(clash)}")
         devices = [replace(d, nodes=tuple(rename.get(n, n) for n in d.nodes)) for d in core.devices]
         elements = [replace(e, a=rename.get(e.a, e.a), b=rename.get(e.b, e.b)) for e in core.elements]
-        metrics = dict(core.metrics)
+        metrics = {k: v for k, v in core.metrics.items() if k not in _REPLACED}
         metrics.update(self.stage.metrics(stage, core.metrics, tech, cond))
-        metrics.pop("gbw_hand_hz", None)
         return Build(devices + stage.devices, elements + stage.elements,
                      core.supply_current + stage.supply_current, metrics)

@@ -8,5 +8,11 @@ class InputError(Exception):
         self.source, self.key, self.expected, self.got = source, key, expected, got
         message = f"{source}: {key}: expected {expected}"
         if got is not None:
-            message += f", got {got!r}"
+            shown = repr(got)
+            # A long value (a pasted file, a megabyte string) is cut: the line names it, not reprints it.
+            message += f", got {shown if len(shown) <= 80 else shown[:77] + '...'}"
         super().__init__(message)
+
+
+class PluginError(Exception):
+    """A topology or output stage (built-in or third-party) that breaks its interface; one line, exit 2."""

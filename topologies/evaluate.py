@@ -7,6 +7,8 @@ from dataclasses import replace
 import numpy as np
 
 from .base import Build, Conditions, Topology
+from .catalog import is_headroom
+from .errors import PluginError
 from .process.base import Technology
 from .kcl import node_imbalance
 from .noise import noise_metrics
@@ -39,7 +41,29 @@ def small_signal(build: Build, cond: Conditions, mode: str = "differential") -> 
     circuit.capacitor("out", "0", cond.c_load)
     if np.isfinite(cond.r_load):
         circuit.resistor("out", "0", cond.r_load)
+    _quarantine(circuit)
     return circuit
+
+
+MAX_CONDUCTANCE = 1e3   # S
+MAX_CAPACITANCE = 1.0   # F
+
+
+def _quarantine(circuit: Circuit) -> None:
+    """Designs whose circuit holds NaN or inf (a dead or off-table device) get a harmless identity circuit,
+    so one of them cannot stop LAPACK for the whole population; `evaluate` marks them NaN afterwards."""
+    bad = ~(np.isfinite(circuit.G).all(axis=(1, 2)) & np.isfinite(circuit.C).all(axis=(1, 2)))
+    # Beyond a kilosiemens or a farad nothing is an integrated amplifier: such values come from design
+    # vectors far outside the search box and only make LAPACK see singular matrices.
+    bad |= (np.abs(np.nan_to_num(circuit.G)).max(axis=(1, 2)) > MAX_CONDUCTANCE) | (
+        np.abs(np.nan_to_num(circuit.C)).max(axis=(1, 2)) > MAX_CAPACITANCE)
+    n = len(circuit.nodes)
+    sign, _ = np.linalg.slogdet(np.where(bad[:, None, None], np.eye(n), circuit.G[:, :n, :n]))
+    bad |= sign == 0
+    circuit.quarantined = bad
+    if bad.any():
+        circuit.G[bad] = np.eye(circuit.G.shape[1])
+        circuit.C[bad] = 0.0
 
 
 def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, cond: Conditions):
@@ -53,24 +77,24 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         # Open-loop output resistance, inputs at AC ground, without the load resistor.
         unloaded = circuit if not np.isfinite(cond.r_load) else small_signal(build, replace(cond, r_load=np.inf))
         r_out = unloaded.transimpedance("out")("out")
-        a_cm = small_signal(build, cond, "common_mode").dc_gain("out")
-        a_dd = small_signal(build, cond, "supply").dc_gain("out")
+        common, supply = small_signal(build, cond, "common_mode"), small_signal(build, cond, "supply")
+        a_cm, a_dd = common.dc_gain("out"), supply.dc_gain("out")
+        unsolved = circuit.quarantined | unloaded.quarantined | common.quarantined | supply.quarantined
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
-    nan = np.full(len(build.supply_current), np.nan)
-    peak_source, peak_sink = build.metrics.get("peak_source_a", nan), build.metrics.get("peak_sink_a", nan)
-    if np.isfinite(cond.r_load) and "out_high_v" in build.metrics:
+    reported = _reported(topology, build)
+    peak_source, peak_sink = reported["peak_source_a"], reported["peak_sink_a"]
+    out_high, out_low = reported.pop("out_high_v"), reported.pop("out_low_v")
+    if np.isfinite(cond.r_load):
         # The load line: the output cannot go further from the common mode than the peak current through
         # the load resistor allows.
-        limits = build.metrics
-        limits["out_high_v"] = np.fmin(limits["out_high_v"], cond.v_cm + peak_source * cond.r_load)
-        limits["out_low_v"] = np.fmax(limits["out_low_v"], cond.v_cm - peak_sink * cond.r_load)
-        limits["swing_v"] = limits["out_high_v"] - limits["out_low_v"]
+        out_high = np.fmin(out_high, cond.v_cm + peak_source * cond.r_load)
+        out_low = np.fmax(out_low, cond.v_cm - peak_sink * cond.r_load)
     gate_area = sum(d.w * d.l for d in build.devices)
     cap_area = sum(e.value for e in build.elements if e.kind == "C") / tech.cap_density
     sat = {f"sat_{d.role}_v": d.vds - d.op.vdsat for d in build.devices}
     # Headroom a topology budgets for parts it draws as ideal sources counts like a device's.
-    sat.update({k: v for k, v in build.metrics.items() if k.startswith("sat_")})
+    sat.update({k: reported.pop(k) for k in list(reported) if is_headroom(k)})
     metrics = {
         "gain_db": 20 * np.log10(np.maximum(np.abs(loop.gain), 1e-30)),
         "gbw_hz": loop.gbw,
@@ -84,12 +108,35 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         "peak_out_a": np.minimum(peak_source, peak_sink),
         "power_w": cond.vdd * build.supply_current,
         "supply_current_a": build.supply_current,
-        "area_um2": (gate_area + cap_area) * 1e12,
+        "area_m2": gate_area + cap_area,
         "min_width_ratio": np.min([d.w / tech.w_min for d in build.devices], axis=0),
         "sat_min_v": np.min(list(sat.values()), axis=0),
         "dc_residual": node_imbalance(build),
-        **build.metrics,
+        "out_high_v": out_high,
+        "out_low_v": out_low,
+        "swing_v": out_high - out_low,
+        **reported,
         **noise,
         **sat,
     }
+    if unsolved.any():
+        # Only what the small-signal solve gives is unknown for them; power, area and headroom still tell
+        # the search how far such a design is from a working one.
+        small = ("gain_db", "gbw_hz", "phase_margin_deg", "gain_margin_db", "rhp_poles", "cmrr_db", "psrr_db",
+                 "output_resistance_ohm", *noise)
+        metrics.update({k: np.where(unsolved, np.nan, metrics[k]) for k in small})
     return metrics, build
+
+
+def _reported(topology: Topology, build: Build) -> dict[str, np.ndarray]:
+    """The topology's own figures, held to what it declared: a plug-in that drops one is named, not a KeyError
+    three modules later."""
+    got = dict(build.metrics)
+    declared = set(topology.reports)
+    missing = sorted(name for name in declared if name not in got)
+    if missing:
+        raise PluginError(f"topology '{topology.name}' declares but did not report the metric '{missing[0]}'")
+    extra = sorted(name for name in got if name not in declared and not is_headroom(name))
+    if extra:
+        raise PluginError(f"topology '{topology.name}' reported '{extra[0]}', which it does not declare in 'reports'")
+    return got

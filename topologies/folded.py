@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .catalog import CORE_REPORTS
 from .base import Build, Conditions, Element, Variable, gm_id_variable, length_variable, snap_length
 from .process.base import Technology, diode_vgs
 from .stages import BiasBranch, CASCODE_ITERATIONS, cascode_variables, device, pair_mismatch, pair_variables
@@ -18,6 +19,7 @@ class FoldedCascode:
     title = "Folded cascode OTA"
     prefix = "fcs"
     single_stage = True
+    reports = CORE_REPORTS
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         return pair_variables(tech) + (
@@ -123,7 +125,7 @@ class FoldedCascode:
                          + (gm_src / gm_in * pair_mismatch(tech, "p", w_src, l_src)) ** 2
                          + (gm_mb / gm_in * pair_mismatch(tech, "n", w_mb, l_mb)) ** 2)
         metrics = {
-            "slew_v_per_us": np.minimum(i5, i_src) / cond.c_load * 1e-6,
+            "slew_v_per_s": np.minimum(i5, i_src) / cond.c_load,
             # Fully steered, the output branch gets at most the smaller of tail and folding current.
             "peak_source_a": np.minimum(i5, i_src),
             "peak_sink_a": np.minimum(i5, i_src),
@@ -134,5 +136,4 @@ class FoldedCascode:
             "offset_sys_v": vgs2 - vgs1,
             "offset_sigma_v": offset,
         }
-        metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
         return Build(devices, elements, bias.i_ref + i_src + i_src_b + 3 * i_gen, metrics)

@@ -61,6 +61,7 @@ def noise_metrics(circuit: Circuit, build: Build, tech: Technology, gain, band: 
     return {
         "noise_thermal_v_rthz": np.sqrt(white),
         "noise_flicker_1hz_v_rthz": np.sqrt(flicker["n"] + flicker["p"]),
+        "noise_1hz_v_rthz": density(1.0),
         "noise_corner_hz": corner,
         "noise_100hz_v_rthz": density(SPOT_HZ),
         "noise_rms_v": np.sqrt(total),

@@ -21,16 +21,33 @@ class Field:
     positive: bool = True     # physical values must be > 0
 
 
-def read_toml(path: Path) -> dict:
-    if not path.is_file():
-        raise InputError(str(path), "(file)", "an existing TOML file")
+MAX_FILE_BYTES = 1 << 20   # a study or technology file is a page of text, never megabytes
+
+
+def read_toml(path: Path) -> tuple[dict, str]:
+    """The parsed table and the text it came from (UTF-8; a byte-order mark is accepted and dropped)."""
     try:
-        with path.open("rb") as handle:
-            return tomllib.load(handle)
-    except tomllib.TOMLDecodeError as err:
-        raise InputError(str(path), "(file)", f"valid TOML ({err})") from None
+        if not path.is_file():
+            raise InputError(str(path), "(file)", "an existing TOML file")
+        if path.stat().st_size > MAX_FILE_BYTES:
+            raise InputError(str(path), "(file)", f"a TOML file under {MAX_FILE_BYTES >> 10} KiB")
+        data = path.read_bytes()
+    except OSError as error:
+        raise InputError(str(path), "(file)", f"a readable TOML file ({error.strerror or error})") from None
+    try:
+        text = data.decode("utf-8-sig")
     except UnicodeDecodeError:
         raise InputError(str(path), "(file)", "a UTF-8 TOML text file") from None
+    return parse_toml(str(path), text), text
+
+
+def parse_toml(source: str, text: str) -> dict:
+    if "\x00" in text:
+        raise InputError(source, "(file)", "a text file (it holds a NUL byte)")
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(source, "(file)", f"valid TOML ({err})") from None
 
 
 def suggest(name: str, choices) -> str:

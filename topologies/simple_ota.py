@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .catalog import CORE_REPORTS
 from .base import Build, Conditions, Element, Variable
 from .process.base import Technology
 from .stages import BiasBranch, MirrorPair, pair_variables
@@ -15,6 +16,7 @@ class SimpleOTA:
     title = "Five-transistor OTA"
     prefix = "ota"
     single_stage = True
+    reports = CORE_REPORTS
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         return pair_variables(tech)
@@ -29,7 +31,7 @@ class SimpleOTA:
         devices = [_rename_output(d) for d in devices] + [bias.diode(tech)]
         out_pair, load_out = devices[1], devices[3]
         metrics = {
-            "slew_v_per_us": fig["i_tail"] / cond.c_load * 1e-6,
+            "slew_v_per_s": fig["i_tail"] / cond.c_load,
             "peak_source_a": fig["i_tail"],
             "peak_sink_a": fig["i_tail"],
             "out_high_v": vdd - load_out.op.vdsat,
@@ -40,7 +42,6 @@ class SimpleOTA:
             "offset_sys_v": fig["offset_sys_v"],
             "offset_sigma_v": fig["offset_sigma_v"],
         }
-        metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
         elements = [Element("I", "bias_reference", "vdd", "nb", bias.i_ref)]
         return Build(devices, elements, bias.i_ref + fig["i_supply"], metrics)
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .catalog import CORE_REPORTS
 from .base import Build, Conditions, Element, Variable, snap_length
 from .process.base import Technology, diode_vgs
 from .stages import BiasBranch, CASCODE_ITERATIONS, cascode_variables, device, pair_offset_sigma, pair_variables
@@ -18,6 +19,7 @@ class TelescopicCascode:
     title = "Telescopic cascode OTA"
     prefix = "tel"
     single_stage = True
+    reports = CORE_REPORTS
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         return pair_variables(tech) + cascode_variables(tech, "VDS above Vdsat given to the input pair and mirror top")
@@ -100,7 +102,7 @@ class TelescopicCascode:
         op = {d.role: d for d in devices}
         gm_in, gm_top = op["input_pair_a"].op.gm, op["mirror_top_a"].op.gm
         metrics = {
-            "slew_v_per_us": i5 / cond.c_load * 1e-6,
+            "slew_v_per_s": i5 / cond.c_load,
             "peak_source_a": i5,
             "peak_sink_a": i5,
             "out_high_v": pb - op["cascode_p_b"].op.vdsat,
@@ -110,6 +112,5 @@ class TelescopicCascode:
             "offset_sys_v": vgs2 - vgs1,
             "offset_sigma_v": pair_offset_sigma(tech, w_in, l_in, w_top, l_top, gm_in, gm_top),
         }
-        metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
         # The supply feeds the tail through the mirror, less what the following stage pushes into out.
         return Build(devices, elements, bias.i_ref + i5 - cond.i_out + 2 * i_gen, metrics)

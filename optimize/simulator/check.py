@@ -1,54 +1,117 @@
-"""Re-simulate chosen front designs in ngspice and compare with what the model predicted."""
+"""`ampfront check`: rebuild chosen front designs from the results folder's own data, simulate them in
+ngspice, and compare with what the model predicts.
+
+A results folder may come from a colleague: nothing in it is run. The designs are rebuilt from the study
+text and design vectors the folder records, their netlists written afresh by ampfront into a private
+folder, and a testbench in the folder that differs from what ampfront would write is refused.
+"""
 
 from __future__ import annotations
 
 import json
+import re
+import tempfile
+from dataclasses import dataclass
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
+from ampfront import topologies
+from ampfront.optimize.outputs.folder import MANIFEST, TOOL_MARK
+from ampfront.optimize.outputs.netlist import IDENTIFIER, NetlistError, design_files
+from ampfront.optimize.outputs.tables import X_PREFIX, design_vectors
+from ampfront.optimize.simulator.ngspice import DEFAULT_TIMEOUT_S, SpiceError, simulate, simulate_swing
+from ampfront.optimize.spec.study import Study, load_study
+from ampfront.topologies.catalog import AGREEMENT, M, METRICS
 from ampfront.topologies.errors import InputError
-from ampfront.topologies.schema import read_toml
-from ampfront.optimize.simulator.ngspice import simulate, simulate_swing
+from ampfront.topologies.process.techfile import file_hash, load
 
-# Agreement expected between model and simulator. Square law against ngspice level 1 is the same equations,
-# so only numerics separate them; tables against BSIM4 add interpolation and the two-terminal capacitance
-# approximation of a charge-based model.
-BOUNDS = {
-    "square_law": {"gain_db": ("abs", 0.5), "gbw_hz": ("rel", 0.05), "phase_margin_deg": ("abs", 3.0),
-                   "supply_current_a": ("rel", 0.02), "noise_1hz_v_rthz": ("rel", 0.05),
-                   "noise_100hz_v_rthz": ("rel", 0.05),
-                   "cmrr_db": ("abs", 2.0), "psrr_db": ("abs", 2.0)},
-    "gm_id_tables": {"gain_db": ("abs", 2.0), "gbw_hz": ("rel", 0.10), "phase_margin_deg": ("abs", 5.0),
-                     "supply_current_a": ("rel", 0.03), "cmrr_db": ("abs", 6.0), "psrr_db": ("abs", 6.0),
-                     "noise_1hz_v_rthz": ("rel", 0.15), "noise_100hz_v_rthz": ("rel", 0.15)},
-}
 # Rejection of an ideal, unmismatched circuit beyond this is set by residual bias asymmetries, not by the
 # circuit; real parts are limited by mismatch long before. Both sides are compared clipped here.
 REJECTION_CEILING_DB = 100.0
-# Swing from the DC sweep into the load (optimize.spice.simulate_swing): the model's swing keeps every
-# device of the signal path saturated, so it may end this much short of where the swept gain collapses,
-# and may claim at most SWING_SLACK_V more than the sweep shows.
+# Swing from the DC sweep into the load (ngspice.simulate_swing): the model's swing keeps every device of
+# the signal path saturated, so it may end this much short of where the swept gain collapses, and may claim
+# at most SWING_SLACK_V more than the sweep shows.
 SWING_SLACK_V = 0.05
 SWING_SHORTFALL_V = 0.3
+# Netlists print values to 6 significant digits; a rebuilt design may differ from the searched one in the
+# last bits, so numbers are compared to this relative tolerance and everything else exactly.
+_NUMBER_TOLERANCE = 1e-5
 
 
-def technology_kind(folder: Path) -> str:
-    manifest = folder / "manifest.json"
-    if not manifest.is_file():
-        raise InputError(str(folder), "manifest.json", "a folder written by 'ampfront run'")
-    tech_file = Path(json.loads(manifest.read_text())["technology"]["file"])
-    return read_toml(tech_file).get("kind", "square_law")
+@dataclass(frozen=True)
+class Received:
+    """A results folder, read and validated: the study it was made from, its technology, its front."""
+
+    folder: Path
+    study: Study
+    tech: object
+    kind: str
+    front: pd.DataFrame
 
 
-def study_cm(folder: Path) -> float:
-    """The common-mode level the testbenches were written for (manifest `conditions`)."""
-    manifest = json.loads((folder / "manifest.json").read_text())
+def _fail(folder: Path, key: str, expected: str, got=None):
+    raise InputError(str(folder), key, expected, got)
+
+
+def read_result(folder: Path) -> Received:
+    if not folder.is_dir():
+        _fail(folder, "(folder)", "a folder written by 'ampfront run'")
     try:
-        return float(manifest["conditions"]["v_cm_v"])
-    except (KeyError, TypeError, ValueError):
-        raise InputError(str(folder), "manifest.json conditions.v_cm_v", "a folder written by this version of "
-                         "'ampfront run'") from None
+        manifest = json.loads((folder / MANIFEST).read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        _fail(folder, MANIFEST, "a folder written by 'ampfront run' (no manifest.json)")
+    except (OSError, ValueError, UnicodeDecodeError):
+        _fail(folder, MANIFEST, "the JSON manifest 'ampfront run' writes")
+    if not isinstance(manifest, dict) or manifest.get("tool") != TOOL_MARK:
+        _fail(folder, MANIFEST, "a manifest written by ampfront")
+    study_entry, tech_entry = manifest.get("study"), manifest.get("technology")
+    if not (isinstance(study_entry, dict) and isinstance(study_entry.get("text"), str)
+            and isinstance(study_entry.get("file"), str) and isinstance(tech_entry, dict)):
+        _fail(folder, MANIFEST, "a manifest of this version of ampfront (with the study's text); run the study again")
+    study = load_study(Path(study_entry["file"]), topologies.available(), text=study_entry["text"])
+    if file_hash(study.technology, study.corner) != tech_entry.get("sha256"):
+        _fail(folder, f"{MANIFEST} technology", "the technology the results were made with (its file or tables "
+              "have changed since)", str(study.technology))
+    tech = load(study.technology, study.corner)
+    return Received(folder, study, tech, _kind(tech), _front(folder, study, tech))
+
+
+def _kind(tech) -> str:
+    return "gm_id_tables" if getattr(tech, "length_grid", None) is not None else "square_law"
+
+
+def _front(folder: Path, study: Study, tech) -> pd.DataFrame:
+    path = folder / "front.csv"
+    try:
+        front = pd.read_csv(path, dtype={"topology": str, "design": str})
+    except FileNotFoundError:
+        _fail(folder, "front.csv", "a folder written by 'ampfront run' (no front.csv)")
+    except (pd.errors.EmptyDataError, pd.errors.ParserError, UnicodeDecodeError, ValueError):
+        _fail(folder, "front.csv", "the table 'ampfront run' writes")
+    for column in ("topology", "design"):
+        if column not in front.columns:
+            _fail(folder, "front.csv", f"a '{column}' column")
+    if front.empty:
+        _fail(folder, "front.csv", "at least one design")
+    known = topologies.available()
+    for _, row in front.iterrows():
+        if row["topology"] not in study.topologies or row["topology"] not in known:
+            _fail(folder, "front.csv topology", f"a topology of the study ({', '.join(study.topologies)})",
+                  row["topology"])
+        if not isinstance(row["design"], str) or not IDENTIFIER.match(row["design"]):
+            _fail(folder, "front.csv design", "a plain design name (letters, digits, _)", row["design"])
+    for name in front["topology"].unique():
+        needed = [f"{X_PREFIX}{v.name}" for v in known[name].variables(tech)]
+        rows = front[front["topology"] == name]
+        for column in needed:
+            if column not in front.columns:
+                _fail(folder, "front.csv", f"the design-variable column '{column}'")
+            values = pd.to_numeric(rows[column], errors="coerce").to_numpy(float)
+            if not np.isfinite(values).all():
+                _fail(folder, f"front.csv {column}", "finite numbers")
+    return front
 
 
 def spread_picks(front: pd.DataFrame, count: int) -> list[int]:
@@ -57,37 +120,110 @@ def spread_picks(front: pd.DataFrame, count: int) -> list[int]:
     return sorted({round(i * (len(front) - 1) / max(count - 1, 1)) for i in range(count)})
 
 
-def check_folder(folder: Path, count: int) -> pd.DataFrame:
-    table = folder / "front.csv"
-    if not table.is_file():
-        raise InputError(str(folder), "front.csv", "a folder written by 'ampfront run'")
-    front = pd.read_csv(table)
-    bounds = BOUNDS[technology_kind(folder)]
-    v_cm = study_cm(folder)
+_TOKEN = re.compile(r"^([A-Za-z_]*=)?([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)$")
+
+
+def same_netlist(ours: str, theirs: str) -> bool:
+    """True when two netlists say the same thing: identical but for numbers within the print precision."""
+    a, b = ours.splitlines(), theirs.splitlines()
+    if len(a) != len(b):
+        return False
+    for line_a, line_b in zip(a, b):
+        if line_a == line_b:
+            continue
+        ta, tb = line_a.split(), line_b.split()
+        if len(ta) != len(tb):
+            return False
+        for x, y in zip(ta, tb):
+            if x == y:
+                continue
+            mx, my = _TOKEN.match(x), _TOKEN.match(y)
+            if not (mx and my) or mx.group(1) != my.group(1):
+                return False
+            vx, vy = float(mx.group(2)), float(my.group(2))
+            if abs(vx - vy) > _NUMBER_TOLERANCE * max(abs(vx), abs(vy), 1e-30):
+                return False
+    return True
+
+
+def _judge(metric: str, kind: str, model: float, simulated: float) -> tuple[float, bool]:
+    mode, bound = AGREEMENT[metric][kind]
+    if metric in (M.cmrr_db, M.psrr_db):
+        model, simulated = min(model, REJECTION_CEILING_DB), min(simulated, REJECTION_CEILING_DB)
+    error = abs(simulated - model) if mode == "abs" else abs(simulated - model) / max(abs(model), 1e-30)
+    return error, bool(error <= bound)
+
+
+def check_folder(folder: Path, count: int = 5, timeout: float = DEFAULT_TIMEOUT_S) -> pd.DataFrame:
+    """Simulate `count` designs spread along the front; one row per design with `<metric>_model`,
+    `<metric>_spice`, `within_bounds` and `status` ("ok", or why the design could not be simulated)."""
+    received = read_result(folder)
+    picks = received.front.iloc[spread_picks(received.front, count)]
     rows = []
-    for i in spread_picks(front, count):
-        row = front.iloc[i].copy()
-        # The flicker-dominated spot the testbench measures: white floor plus flicker at 1 Hz.
-        row["noise_1hz_v_rthz"] = (row["noise_thermal_v_rthz"] ** 2 + row["noise_flicker_1hz_v_rthz"] ** 2) ** 0.5
-        got = simulate(folder / "netlists" / f"{row['design']}_tb.sp")
-        entry = {"design": row["design"]}
-        ok = True
-        for column, (kind, bound) in bounds.items():
-            model, spice = float(row[column]), got[column]
-            if column in ("cmrr_db", "psrr_db"):
-                model, spice = min(model, REJECTION_CEILING_DB), min(spice, REJECTION_CEILING_DB)
-            error = abs(spice - model) if kind == "abs" else abs(spice - model) / abs(model)
-            entry[f"{column}_model"], entry[f"{column}_spice"] = model, spice
-            ok &= error <= bound
-        swing = folder / "netlists" / f"{row['design']}_swing.sp"
-        if swing.is_file():
-            swept = simulate_swing(swing, f"{row['design']}_swing.dat", v_cm)
-            for column, sign in (("out_low_v", 1.0), ("out_high_v", -1.0)):
-                model = float(row[column])
-                entry[f"{column}_model"], entry[f"{column}_spice"] = model, swept[column]
-                # Positive when the model is the more conservative of the two.
-                short = sign * (model - swept[column])
-                ok &= -SWING_SLACK_V <= short <= SWING_SHORTFALL_V
-        entry["within_bounds"] = ok
-        rows.append(entry)
-    return pd.DataFrame(rows)
+    with tempfile.TemporaryDirectory(prefix="ampfront-check-") as work:
+        work = Path(work)
+        if received.tech.spice_init:
+            (work / ".spiceinit").write_text("\n".join(received.tech.spice_init) + "\n")
+        for name, group in picks.groupby("topology", sort=False):
+            rows += _check_topology(received, name, group, work, timeout)
+    order = {d: k for k, d in enumerate(picks["design"])}
+    return pd.DataFrame(rows).sort_values("design", key=lambda s: s.map(order)).reset_index(drop=True)
+
+
+def _check_topology(received: Received, name: str, group: pd.DataFrame, work: Path, timeout: float) -> list[dict]:
+    topology = topologies.available()[name]
+    study, tech = received.study, received.tech
+    metrics, build = topologies.evaluate(topology, design_vectors(group), tech, study.conditions)
+    rows = []
+    for j, design in enumerate(group["design"]):
+        try:
+            files = design_files(build, j, tech, study.conditions, design, topology.title)
+        except NetlistError as error:
+            rows.append({"design": design, "topology": name, "within_bounds": False,
+                         "status": f"not rebuildable: {error}"})
+            continue
+        for file, text in files.items():
+            theirs = received.folder / "netlists" / file
+            if theirs.is_file():
+                try:
+                    same = same_netlist(text, theirs.read_text(encoding="utf-8"))
+                except (OSError, UnicodeDecodeError):
+                    same = False
+                if not same:
+                    raise InputError(str(theirs), "(netlist)", "the netlist ampfront writes for this design; it "
+                                     "was changed after the run, so ampfront will not run it")
+            (work / file).write_text(text)
+        rows.append(_simulate_design(received, design, name, {k: float(v[j]) for k, v in metrics.items()},
+                                     work, timeout))
+    return rows
+
+
+def _simulate_design(received: Received, design: str, name: str, model: dict, work: Path, timeout: float) -> dict:
+    entry: dict = {"design": design, "topology": name}
+    ok, status = True, "ok"
+    try:
+        got = simulate(work / f"{design}_tb.sp", timeout)
+    except SpiceError as error:
+        return {**entry, "within_bounds": False, "status": f"failed: {error}"}
+    for metric in AGREEMENT:
+        error, within = _judge(metric, received.kind, model[metric], got[metric])
+        entry[f"{metric}_model"], entry[f"{metric}_spice"] = model[metric], got[metric]
+        entry[f"{metric}_error"] = error
+        ok &= within
+        if not within:
+            status = f"{METRICS[metric].label} outside the agreement bound"
+    try:
+        swept = simulate_swing(work / f"{design}_swing.sp", f"{design}_swing.dat", received.study.conditions.v_cm,
+                               timeout)
+    except SpiceError as error:
+        return {**entry, "within_bounds": False, "status": f"swing failed: {error}"}
+    for metric, sign in ((M.out_low_v, 1.0), (M.out_high_v, -1.0)):
+        entry[f"{metric}_model"], entry[f"{metric}_spice"] = model[metric], swept[metric]
+        # Positive when the model is the more conservative of the two.
+        short = sign * (model[metric] - swept[metric])
+        within = -SWING_SLACK_V <= short <= SWING_SHORTFALL_V
+        ok &= within
+        if not within:
+            status = f"{METRICS[metric].label} outside the swing bound"
+    entry["within_bounds"], entry["status"] = bool(ok), status
+    return entry

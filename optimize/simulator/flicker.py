@@ -16,7 +16,8 @@ import numpy as np
 
 from ampfront.topologies.process.tables import DeviceTable
 
-from ampfront.optimize.simulator.characterize import ModelLibrary, _run
+from ampfront.optimize.simulator.characterize import _run
+from ampfront.topologies.process.libraries import ModelLibrary
 
 FORMAT = "ampfront-flicker/1"
 GM_ID_LEVELS = (5.0, 10.0, 15.0, 20.0)

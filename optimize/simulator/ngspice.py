@@ -1,25 +1,29 @@
-"""Running ngspice on exported testbenches and reading back what they measured."""
+"""Running ngspice on testbenches ampfront wrote, and reading back what they measured.
+
+Every run starts with its outputs removed and ends within its timeout: on a hang the whole process group
+(ngspice and anything it started) is killed. A run that does not produce what it must is an error with
+its reason, never a stale result from an earlier run.
+"""
 
 from __future__ import annotations
 
+import math
+import os
 import shutil
+import signal
 import subprocess
 from pathlib import Path
 
 import numpy as np
 
-from ampfront.optimize.outputs.netlist import RESULT_TAG
+from ampfront.optimize.outputs.netlist import CM_GAIN, RESULT_TAG, SUPPLY_GAIN, TESTBENCH_METRICS
+from ampfront.topologies.catalog import M
 
-# What a testbench prints, in the units it prints them, and the front.csv column each checks.
-MEASURED = {"gain_db": ("gain_db", 1.0), "gbw_hz": ("gbw_hz", 1.0),
-            "phase_margin_deg": ("phase_margin_deg", 1.0), "supply_current_ua": ("supply_current_a", 1e-6),
-            "noise_1hz_nv_rthz": ("noise_1hz_v_rthz", 1e-9), "noise_100hz_nv_rthz": ("noise_100hz_v_rthz", 1e-9),
-            "cm_gain_db": ("cm_gain_db", 1.0),
-            "supply_gain_db": ("supply_gain_db", 1.0)}
+DEFAULT_TIMEOUT_S = 120.0
 
 
 class SpiceError(Exception):
-    """ngspice is missing, failed, or did not print the measurements."""
+    """ngspice is missing, failed, timed out, or did not print the measurements."""
 
 
 def ngspice() -> str:
@@ -29,25 +33,63 @@ def ngspice() -> str:
     return found
 
 
-def simulate(testbench: Path, timeout: float = 120.0) -> dict[str, float]:
-    """Run one testbench in its own folder; return the values it printed, SI units."""
-    proc = subprocess.run([ngspice(), "-b", testbench.name], cwd=testbench.parent, capture_output=True,
-                          text=True, timeout=timeout)
+def run_ngspice(deck: Path, timeout: float = DEFAULT_TIMEOUT_S) -> tuple[int, str, str]:
+    """ngspice -b on one deck, started in the deck's folder in a session of its own: exit code, stdout,
+    stderr. A run past its timeout (or interrupted) is killed with everything it started."""
+    proc = subprocess.Popen([ngspice(), "-b", deck.name], cwd=deck.parent, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, stdin=subprocess.DEVNULL, text=True, errors="replace",
+                            start_new_session=True)
+    try:
+        stdout, stderr = proc.communicate(timeout=timeout)
+    except subprocess.TimeoutExpired:
+        _kill_group(proc)
+        raise SpiceError(f"{deck.name}: ngspice did not finish within {timeout:g} s (killed)") from None
+    except BaseException:
+        _kill_group(proc)
+        raise
+    return proc.returncode, stdout, stderr
+
+
+def run_deck(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S, outputs: tuple[str, ...] = ()) -> str:
+    """Run one deck in its own folder and return what it printed; `outputs` are files it must write."""
+    for name in outputs:
+        (testbench.parent / name).unlink(missing_ok=True)
+    returncode, stdout, stderr = run_ngspice(testbench, timeout)
+    if returncode != 0:
+        tail = (stderr or stdout).strip().splitlines()[-3:]
+        raise SpiceError(f"{testbench.name}: ngspice exit {returncode}: {' | '.join(tail)}")
+    for name in outputs:
+        if not (testbench.parent / name).is_file():
+            raise SpiceError(f"{testbench.name}: ngspice wrote no {name}")
+    return stdout
+
+
+def _kill_group(proc: subprocess.Popen) -> None:
+    try:
+        os.killpg(proc.pid, signal.SIGKILL)
+    except (ProcessLookupError, PermissionError):
+        pass
+    proc.wait()
+
+
+def simulate(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, float]:
+    """Run one open-loop testbench; return the values it printed (SI units), rejection ratios derived."""
+    stdout = run_deck(testbench, timeout)
     values: dict[str, float] = {}
-    for line in proc.stdout.splitlines():
+    for line in stdout.splitlines():
         if line.startswith(RESULT_TAG):
             parts = line.split()
             try:
                 values[parts[1]] = float(parts[2])
             except (IndexError, ValueError):
                 continue
-    missing = [k for k in MEASURED if k not in values]
-    if proc.returncode != 0 or missing:
-        tail = (proc.stderr or proc.stdout).strip().splitlines()[-3:]
-        raise SpiceError(f"{testbench}: ngspice exit {proc.returncode}, missing {missing}: {' | '.join(tail)}")
-    out = {column: values[key] * scale for key, (column, scale) in MEASURED.items()}
-    out["cmrr_db"] = out["gain_db"] - out.pop("cm_gain_db")
-    out["psrr_db"] = out["gain_db"] - out.pop("supply_gain_db")
+    wanted = (*TESTBENCH_METRICS, CM_GAIN, SUPPLY_GAIN)
+    missing = [k for k in wanted if k not in values or not math.isfinite(values[k])]
+    if missing:
+        raise SpiceError(f"{testbench.name}: ngspice did not measure {', '.join(missing)}")
+    out = {k: values[k] for k in TESTBENCH_METRICS}
+    out[M.cmrr_db] = out[M.gain_db] - values[CM_GAIN]
+    out[M.psrr_db] = out[M.gain_db] - values[SUPPLY_GAIN]
     return out
 
 
@@ -56,19 +98,20 @@ def simulate(testbench: Path, timeout: float = 120.0) -> dict[str, float]:
 SWING_GAIN_DROP_DB = 20.0
 
 
-def simulate_swing(testbench: Path, data_file: str, v_cm: float, timeout: float = 120.0) -> dict[str, float]:
+def simulate_swing(testbench: Path, data_file: str, v_cm: float, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, float]:
     """Run a swing testbench; return the open-loop gain at mid-scale (dB) read from the sweep, and the
     lowest and highest output levels (V) out to which the gain is still within SWING_GAIN_DROP_DB of it.
 
     The inverter's feedback network halves the loop gain: with s = dVout/dVset, A = -2 s / (1 + s).
     """
-    proc = subprocess.run([ngspice(), "-b", testbench.name], cwd=testbench.parent, capture_output=True,
-                          text=True, timeout=timeout)
-    data = testbench.parent / data_file
-    if proc.returncode != 0 or not data.is_file():
-        tail = (proc.stderr or proc.stdout).strip().splitlines()[-3:]
-        raise SpiceError(f"{testbench}: ngspice exit {proc.returncode}: {' | '.join(tail)}")
-    v_set, v_out = np.loadtxt(data, ndmin=2)[:, :2].T
+    run_deck(testbench, timeout, outputs=(data_file,))
+    try:
+        data = np.loadtxt(testbench.parent / data_file, ndmin=2)
+        v_set, v_out = data[:, :2].T
+    except (ValueError, IndexError) as error:
+        raise SpiceError(f"{testbench.name}: unreadable sweep output {data_file} ({error})") from None
+    if len(v_set) < 3 or not np.isfinite(data[:, :2]).all():
+        raise SpiceError(f"{testbench.name}: the sweep output {data_file} is too short or not finite")
     slope = np.gradient(v_out, v_set)
     with np.errstate(divide="ignore", invalid="ignore"):
         gain = np.abs(-2 * slope / (1 + slope))
@@ -77,7 +120,7 @@ def simulate_swing(testbench: Path, data_file: str, v_cm: float, timeout: float 
     # The outermost linear points on either side of mid-scale: a class-AB stage's gain can dip near its
     # quiescent point (both output devices at low current) and rise again as one of them takes the load.
     # The set point rises as the output falls.
-    lo = int(np.flatnonzero(linear[:mid + 1])[0])
-    hi = mid + int(np.flatnonzero(linear[mid:])[-1])
-    return {"gain_db": float(20 * np.log10(gain[mid])), "out_low_v": float(v_out[hi]),
-            "out_high_v": float(v_out[lo])}
+    lo = int(np.flatnonzero(linear[:mid + 1])[0]) if linear[:mid + 1].any() else mid
+    hi = mid + int(np.flatnonzero(linear[mid:])[-1]) if linear[mid:].any() else mid
+    return {M.gain_db: float(20 * np.log10(gain[mid])), M.out_low_v: float(v_out[hi]),
+            M.out_high_v: float(v_out[lo])}

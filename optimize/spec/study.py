@@ -6,55 +6,35 @@ Parsed and validated once, at the edge; everything downstream gets SI floats.
 from __future__ import annotations
 
 import hashlib
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
 from ampfront.topologies.base import Conditions
+from ampfront.topologies.catalog import BOUNDS, CONDITIONS, DEFAULT_SATURATION_MARGIN, INPUT_CM, OBJECTIVES, RULES
 
 from ampfront.topologies.errors import InputError
-from ampfront.topologies.schema import Field, check_keys, read_table, read_toml, suggest
+from ampfront.topologies.schema import Field, check_keys, parse_toml, read_table, read_toml, suggest
+from ampfront.topologies.units import eng
 from ampfront.topologies.process.techfile import corners, resolve
 
 DEFAULT_TECHNOLOGY = "sky130"   # its default corner: tt, 27 degC
 
-# Objectives: the metric behind each, its direction, and the transform the search works in (log for
-# quantities that span decades, so the front is spread evenly over them).
-OBJECTIVES = {
-    "gain": ("gain_db", "max", False),
-    "power": ("power_w", "min", True),
-    "gbw": ("gbw_hz", "max", True),
-    "area": ("area_um2", "min", True),
-    "phase_margin": ("phase_margin_deg", "max", False),
-}
-
+# The [spec] table, from the catalog: the surroundings, then every bound (input_cm and noise_band, which
+# take a range, are read by their own functions below).
 SPEC_SCHEMA = {
-    "supply": Field("V", True),
-    "load_capacitance": Field("F", True),
-    "load_resistance": Field("Ohm"),
-    "min_gain": Field("dB"),
-    "min_gbw": Field("Hz"),
-    "min_phase_margin": Field("deg"),
-    "min_gain_margin": Field("dB"),
-    "min_slew_rate": Field("V/s"),
-    "min_output_swing": Field("V"),
-    "input_cm": Field("V"),          # or a two-element list, see _input_cm
-    "max_power": Field("W"),
-    "max_area": Field("m^2"),
-    "max_offset_sigma": Field("V"),
-    "max_noise_density": Field("V/sqrt(Hz)"),
-    "max_noise_rms": Field("V"),
-    "min_output_current": Field("A"),
-    "min_cmrr": Field("dB"),
-    "min_psrr": Field("dB"),
-    "saturation_margin": Field("V"),
+    **{c.key: Field(c.dimension, c.required) for c in CONDITIONS.values() if c.form == "value"},
+    **{b.key: Field(b.dimension) for b in BOUNDS.values()},
 }
 SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed": Field("int", positive=False)}
+# Search sizes a 24 GB, 2-core machine finishes; beyond them a study is a typo, not a plan. pymoo's NSGA-II
+# needs a handful of parents; numpy seeds are unsigned 32-bit.
+SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed": (0, 2**32 - 1)}
+SEARCH_DEFAULTS = {"population": 100, "generations": 60, "seed": 1}
+_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
 TOP_KEYS = {"title", "topologies", "objectives", "technology", "corner", "spec", "search"}
-
-# Saturation headroom kept on every device unless the study says otherwise (common practice: 50-100 mV).
-DEFAULT_SATURATION_MARGIN = 0.05
 
 
 @dataclass(frozen=True)
@@ -66,7 +46,6 @@ class Constraint:
     sense: str
     bound: float
     scale: float
-    unit: str
 
     def margin(self, metrics: dict[str, np.ndarray]) -> np.ndarray:
         value = metrics[self.metric]
@@ -93,6 +72,7 @@ class Study:
     generations: int
     seed: int
     digest: str
+    text: str = ""          # the study file as read, so a results folder can be rebuilt from it
 
 
 def _input_cm(source: str, raw, supply: float) -> tuple[float, float]:
@@ -131,9 +111,40 @@ def _noise_band(source: str, raw) -> tuple[float, float]:
     return low, high
 
 
-def load_study(path: Path, topology_names) -> Study:
+def _names(source: str, key: str, raw, choices, low: int, high: int) -> tuple[str, ...]:
+    expected = (f"a list of {low} to {high} distinct names from {', '.join(choices)}" if high > low
+                else f"a list of names from {', '.join(choices)}")
+    if not isinstance(raw, list) or not low <= len(raw) <= high or not all(isinstance(n, str) for n in raw):
+        raise InputError(source, key, expected, raw)
+    for name in raw:
+        if name not in choices:
+            raise InputError(source, key, f"names from {', '.join(choices)}{suggest(name, choices)}", name)
+    if len(set(raw)) != len(raw):
+        duplicate = next(n for n in raw if raw.count(n) > 1)
+        raise InputError(source, key, "each name once", duplicate)
+    return tuple(raw)
+
+
+def _search(source: str, raw) -> dict[str, int]:
+    search = {**SEARCH_DEFAULTS, **read_table(source, "search.", raw, SEARCH_SCHEMA)}
+    for key, (low, high) in SEARCH_LIMITS.items():
+        if not low <= search[key] <= high:
+            raise InputError(source, f"search.{key}", f"a whole number from {low:,} to {high:,}", search[key])
+    return search
+
+
+def _title(source: str, raw, default: str) -> str:
+    if raw is None:
+        return default
+    if not isinstance(raw, str) or not raw.strip() or len(raw) > 200 or _CONTROL.search(raw):
+        raise InputError(source, "title", "one line of text (up to 200 characters, no control characters)", raw)
+    return raw
+
+
+def load_study(path: Path, topology_names, text: str | None = None) -> Study:
+    """Read and validate a study; `text` stands in for the file's content (a results folder's copy)."""
     source = str(path)
-    raw = read_toml(path)
+    raw, text = read_toml(path) if text is None else (parse_toml(source, text), text)
     check_keys(source, "", raw, TOP_KEYS)
     if "spec" not in raw:
         raise InputError(source, "spec", "a [spec] table", "missing")
@@ -146,29 +157,12 @@ def load_study(path: Path, topology_names) -> Study:
     noise_band = _noise_band(source, band_raw)
     swing = spec.get("min_output_swing")
     if swing is not None and swing >= supply:
-        raise InputError(source, "spec.min_output_swing", f"a swing below the supply ({supply:g} V)", swing)
-    if spec.get("min_gain_margin", 1.0) <= 0:
-        raise InputError(source, "spec.min_gain_margin", "a positive margin in dB")
+        raise InputError(source, "spec.min_output_swing", f"a swing below the supply ({eng(supply, 'V')})", raw["spec"]["min_output_swing"])
 
-    objectives = raw.get("objectives", ["power", "gbw"])
-    if (not isinstance(objectives, list) or not 2 <= len(objectives) <= 5
-            or len(set(map(str, objectives))) != len(objectives)):
-        raise InputError(source, "objectives", f"a list of 2 to 5 distinct names from {', '.join(OBJECTIVES)}",
-                         objectives)
-    for name in objectives:
-        if name not in OBJECTIVES:
-            raise InputError(source, "objectives",
-                             f"names from {', '.join(OBJECTIVES)}{suggest(str(name), OBJECTIVES)}", name)
-
-    topologies = raw.get("topologies", ["two_stage_miller"])
-    if not isinstance(topologies, list) or not topologies:
-        raise InputError(source, "topologies", f"a non-empty list from {', '.join(topology_names)}", topologies)
-    for name in topologies:
-        if name not in topology_names:
-            raise InputError(source, "topologies",
-                             f"names from {', '.join(topology_names)}{suggest(str(name), topology_names)}", name)
-
-    search = read_table(source, "search.", raw.get("search", {}), SEARCH_SCHEMA)
+    objectives = _names(source, "objectives", raw.get("objectives", ["power", "gbw"]), OBJECTIVES, 2, 5)
+    names = _names(source, "topologies", raw.get("topologies", ["two_stage_miller"]), list(topology_names), 1,
+                   len(topology_names))
+    search = _search(source, raw.get("search", {}))
     technology = raw.get("technology", DEFAULT_TECHNOLOGY)
     if not isinstance(technology, str):
         raise InputError(source, "technology", "a shipped technology name or a .toml file path", technology)
@@ -176,7 +170,7 @@ def load_study(path: Path, topology_names) -> Study:
     corner = raw.get("corner")
     if corner is not None:
         shipped_corners = corners(tech_path)
-        if corner not in shipped_corners:
+        if not isinstance(corner, str) or corner not in shipped_corners:
             raise InputError(source, "corner", f"a corner the technology ships: {', '.join(shipped_corners) or 'none'}"
                              f"{suggest(str(corner), shipped_corners)}", corner)
 
@@ -185,44 +179,20 @@ def load_study(path: Path, topology_names) -> Study:
                             r_load=spec.get("load_resistance", np.inf), v_cm=0.5 * (cm_range[0] + cm_range[1]),
                             noise_band=noise_band)
     return Study(
-        path=path, title=str(raw.get("title", path.stem)), spec=spec, conditions=conditions,
-        cm_range=cm_range, constraints=constraints, objectives=tuple(objectives),
-        topologies=tuple(topologies), technology=tech_path, corner=corner,
-        population=search.get("population", 100), generations=search.get("generations", 60),
-        seed=search.get("seed", 1), digest=hashlib.sha256(path.read_bytes()).hexdigest(),
+        path=path, title=_title(source, raw.get("title"), path.stem), spec=spec, conditions=conditions,
+        cm_range=cm_range, constraints=constraints, objectives=objectives,
+        topologies=names, technology=tech_path, corner=corner,
+        population=search["population"], generations=search["generations"], seed=search["seed"],
+        digest=hashlib.sha256(text.encode("utf-8")).hexdigest(), text=text,
     )
 
 
 def _constraints(spec: dict, cm_range: tuple[float, float]) -> tuple[Constraint, ...]:
-    """Every spec bound becomes a constraint (objectives included: a front of designs that meet spec)."""
-    table = [
-        ("min_gain", "gain_db", "min", "dB"), ("min_gbw", "gbw_hz", "min", "Hz"),
-        ("min_phase_margin", "phase_margin_deg", "min", "deg"), ("min_gain_margin", "gain_margin_db", "min", "dB"),
-        ("min_slew_rate", "slew_v_per_us", "min", "V/us"), ("min_output_swing", "swing_v", "min", "V"),
-        ("max_power", "power_w", "max", "W"), ("max_area", "area_um2", "max", "um^2"),
-        ("max_offset_sigma", "offset_sigma_v", "max", "V"),
-        ("max_noise_density", "noise_thermal_v_rthz", "max", "V/sqrt(Hz)"),
-        ("max_noise_rms", "noise_rms_v", "max", "V"),
-        ("min_output_current", "peak_out_a", "min", "A"),
-        ("min_cmrr", "cmrr_db", "min", "dB"), ("min_psrr", "psrr_db", "min", "dB"),
-    ]
-    out = []
-    for key, metric, sense, unit in table:
-        if key in spec:
-            bound = spec[key]
-            if key == "min_slew_rate":
-                bound *= 1e-6
-            elif key == "max_area":
-                bound *= 1e12
-            out.append(Constraint(key, metric, sense, bound, max(abs(bound), 1.0 if unit == "dB" else 0.0), unit))
-    margin = spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)
-    out.append(Constraint("saturation_margin", "sat_min_v", "min", margin, 0.1, "V"))
-    out.append(Constraint("min_width", "min_width_ratio", "min", 1.0, 1.0, "x w_min"))
-    # A DC operating point that does not satisfy KCL to 0.1 % of the supply current is not a design.
-    out.append(Constraint("dc_solved", "dc_residual", "max", 1e-3, 1e-3, "x supply"))
-    # An amplifier whose open loop has right-half-plane poles is unstable whatever its phase margin says.
-    out.append(Constraint("open_loop_stable", "rhp_poles", "max", 0.0, 1.0, "poles"))
-    # The input common-mode range must lie inside what the amplifier accepts.
-    out.append(Constraint("input_cm_low", "cm_low_v", "max", cm_range[0], 0.1, "V"))
-    out.append(Constraint("input_cm_high", "cm_high_v", "min", cm_range[1], 0.1, "V"))
+    """Every spec bound becomes a constraint (objectives included: a front of designs that meet spec), then
+    the rules every design obeys whatever the spec (catalog.RULES)."""
+    values = {**spec, "saturation_margin": spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)}
+    out = [Constraint(b.key, b.metric, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
+           for b in BOUNDS.values() if b.key in values]
+    out += [Constraint(r.key, r.metric, r.sense, r.value, r.scale) for r in RULES.values()]
+    out += [Constraint(r.key, r.metric, r.sense, level, r.scale) for r, level in zip(INPUT_CM, cm_range)]
     return tuple(out)

@@ -49,6 +49,7 @@ class Technology(Protocol):
     cap_density: float     # F/m^2 of the compensation capacitor
     gm_id_bounds: tuple[float, float]  # S/A range the model is valid over
     spice_init: tuple[str, ...]        # lines the netlists' .spiceinit needs (ngspice compatibility mode)
+    length_grid: np.ndarray | None     # characterized lengths designs snap to (m), or None: any length
 
     def operating_point(self, polarity: Polarity, w, l, vgs, vds, vsb) -> OperatingPoint: ...
 

@@ -57,6 +57,8 @@ class SquareLaw:
     spice_init: tuple[str, ...] = ()
     # Square law is a strong-inversion model; below ~0.1 V overdrive it overstates gm (common practice).
     gm_id_bounds: tuple[float, float] = (4.0, 20.0)
+    # Any length within the limits is drawn (on a 5 nm grid): no characterized set to snap to.
+    length_grid = None
 
     def quantize_width(self, w):
         return np.asarray(w, float)

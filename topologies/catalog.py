@@ -1,0 +1,273 @@
+"""Every metric and every spec key, declared once.
+
+A metric is a figure the evaluator, the noise analysis or a topology reports for each design, always in SI
+units; a spec key is what a study file may bound. The study schema, the constraints, the objectives, the
+report's labels and units, the CSV columns and `ampfront check`'s comparison all read these tables, so a new
+figure is one line here (plus the code that computes it).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from types import SimpleNamespace
+from typing import Literal
+
+from .units import eng
+
+Sense = Literal["min", "max"]
+
+
+@dataclass(frozen=True)
+class Metric:
+    """One figure of merit. `unit` is the SI unit of the stored value; `shown` says how a person reads it:
+    with an engineering prefix on `unit` ("eng"), or as a plain number in `unit` after multiplying by
+    `scale` ("fixed", for dB, degrees, µm², V/µs)."""
+
+    name: str
+    unit: str
+    label: str
+    better: Sense | None = None       # "max": larger is better; None: neither (a level, a count)
+    shown: Literal["eng", "fixed"] = "eng"
+    scale: float = 1.0
+    display_unit: str = ""            # unit text shown for "fixed" metrics (defaults to `unit`)
+    digits: int = 3
+    in_report: bool = False           # a column of the report's design table and its hover text
+    doc: str = ""
+
+    def format(self, value: float) -> str:
+        if self.shown == "eng":
+            return eng(value, self.display_unit or self.unit, self.digits)
+        text = self.display_unit or self.unit
+        if value is None or value != value:
+            return f"n/a {text}"
+        return f"{value * self.scale:.{self.digits}g} {text}"
+
+    @property
+    def axis_title(self) -> str:
+        unit = self.display_unit or self.unit
+        return f"{self.label} ({unit})" if unit and unit != "1" else self.label
+
+
+def _m(*args, **kwargs) -> Metric:
+    return Metric(*args, **kwargs)
+
+
+_DECLARED = (
+    # The open loop, measured as the testbench measures it.
+    _m("gain_db", "dB", "DC gain", "max", "fixed", in_report=True),
+    _m("gbw_hz", "Hz", "GBW", "max", in_report=True, doc="unity-gain frequency of the open loop"),
+    _m("phase_margin_deg", "deg", "Phase margin", "max", "fixed", display_unit="°", in_report=True),
+    _m("gain_margin_db", "dB", "Gain margin", "max", "fixed", in_report=True),
+    _m("rhp_poles", "1", "Open-loop RHP poles", "min", "fixed", display_unit="", doc="right-half-plane poles"),
+    _m("cmrr_db", "dB", "CMRR", "max", "fixed", in_report=True, doc="low-frequency, unmismatched circuit"),
+    _m("psrr_db", "dB", "PSRR", "max", "fixed", in_report=True, doc="low-frequency, from the positive supply"),
+    _m("output_resistance_ohm", "Ω", "Output resistance", "min", in_report=True),
+    # Budgets.
+    _m("power_w", "W", "Power", "min", in_report=True),
+    _m("supply_current_a", "A", "Supply current", "min"),
+    _m("area_m2", "m²", "Area", "min", "fixed", scale=1e12, display_unit="µm²", digits=4, in_report=True,
+       doc="gate area of every device plus the capacitors"),
+    _m("min_width_ratio", "1", "Narrowest device / w_min", "max", "fixed", display_unit="× w_min"),
+    _m("sat_min_v", "V", "Smallest saturation margin", "max", doc="min over devices of VDS - Vdsat"),
+    _m("dc_residual", "1", "KCL residual", "min", "fixed", display_unit="× supply current"),
+    # Large signal: the topology's own figures.
+    _m("slew_v_per_s", "V/s", "Slew rate", "max", "fixed", scale=1e-6, display_unit="V/µs", in_report=True),
+    _m("out_high_v", "V", "Highest linear output", "max"),
+    _m("out_low_v", "V", "Lowest linear output", "min"),
+    _m("swing_v", "V", "Output swing", "max", in_report=True, doc="out_high_v - out_low_v, peak to peak"),
+    _m("cm_low_v", "V", "Lowest input common mode", "min"),
+    _m("cm_high_v", "V", "Highest input common mode", "max"),
+    _m("peak_source_a", "A", "Peak source current", "max"),
+    _m("peak_sink_a", "A", "Peak sink current", "max"),
+    _m("peak_out_a", "A", "Peak output current", "max", in_report=True, doc="the smaller of source and sink"),
+    _m("offset_sys_v", "V", "Systematic offset", None),
+    _m("offset_sigma_v", "V", "Offset (1σ)", "min", in_report=True, doc="threshold mismatch, Pelgrom"),
+    # Noise, input-referred.
+    _m("noise_thermal_v_rthz", "V/√Hz", "White noise", "min", in_report=True),
+    _m("noise_flicker_1hz_v_rthz", "V/√Hz", "Flicker noise at 1 Hz", "min"),
+    _m("noise_1hz_v_rthz", "V/√Hz", "Noise at 1 Hz", "min", doc="white floor and flicker together"),
+    _m("noise_100hz_v_rthz", "V/√Hz", "Noise at 100 Hz", "min"),
+    _m("noise_corner_hz", "Hz", "1/f corner", "min", in_report=True),
+    _m("noise_rms_v", "V", "Noise in band", "min", display_unit="Vrms", in_report=True),
+    # Output-stage figures.
+    _m("quiescent_out_a", "A", "Output quiescent current", None),
+    _m("min_device_current_a", "A", "Least output-device current at full drive", None),
+    # Hand analysis kept for explanation beside the solver's figure.
+    _m("gbw_hand_hz", "Hz", "GBW (dominant-pole hand form)", None),
+)
+METRICS: dict[str, Metric] = {m.name: m for m in _DECLARED}
+# Names for code outside the topologies: `M.gain_db` rather than a string literal, so a misspelt name fails
+# loudly and every name stays declared here once.
+M = SimpleNamespace(**{name: name for name in METRICS})
+
+# Headroom a topology budgets for parts it draws as ideal sources: `sat_<role>_v`, joined to the
+# saturation constraint like every device's own VDS - Vdsat.
+HEADROOM_PREFIX, HEADROOM_SUFFIX = "sat_", "_v"
+
+
+def is_headroom(name: str) -> bool:
+    return name.startswith(HEADROOM_PREFIX) and name.endswith(HEADROOM_SUFFIX) and name != "sat_min_v"
+
+
+def metric(name: str) -> Metric:
+    """The declared metric, or a headroom entry described from its role."""
+    if name in METRICS:
+        return METRICS[name]
+    if is_headroom(name):
+        role = name[len(HEADROOM_PREFIX):-len(HEADROOM_SUFFIX)]
+        return Metric(name, "V", f"Saturation margin of {role.replace('_', ' ')}", "max")
+    raise KeyError(f"'{name}' is not a declared metric (topologies/catalog.py)")
+
+
+# What every core topology must report in Build.metrics (the evaluator derives the rest).
+CORE_REPORTS = frozenset({"slew_v_per_s", "out_high_v", "out_low_v", "cm_low_v", "cm_high_v", "offset_sys_v",
+                          "offset_sigma_v", "peak_source_a", "peak_sink_a"})
+# What an output stage must report: the figures of the new output it replaces.
+STAGE_REPORTS = frozenset({"slew_v_per_s", "out_high_v", "out_low_v", "peak_source_a", "peak_sink_a"})
+# Computed by the evaluator from a topology's figures; a topology never sets these.
+DERIVED = frozenset({"swing_v", "peak_out_a"})
+
+
+@dataclass(frozen=True)
+class Objective:
+    """A quantity a study may map on its fronts; `log` when it spans decades (searched as log10)."""
+
+    name: str
+    metric: str
+    log: bool
+
+    @property
+    def sense(self) -> Sense:
+        return METRICS[self.metric].better
+
+
+OBJECTIVES: dict[str, Objective] = {o.name: o for o in (
+    Objective("gain", "gain_db", False),
+    Objective("power", "power_w", True),
+    Objective("gbw", "gbw_hz", True),
+    Objective("area", "area_m2", True),
+    Objective("phase_margin", "phase_margin_deg", False),
+)}
+
+
+@dataclass(frozen=True)
+class Bound:
+    """A spec key that bounds one metric: metric >= value (sense "min") or <= value ("max").
+
+    `dimension` is how the study writes the value (units.parse dimension); `floor` keeps a bound near zero
+    (dB, degrees) from blowing up the search's normalized violation."""
+
+    key: str
+    metric: str
+    sense: Sense
+    dimension: str
+    label: str
+    floor: float = 0.0
+    doc: str = ""
+
+
+BOUNDS: dict[str, Bound] = {b.key: b for b in (
+    Bound("min_gain", "gain_db", "min", "dB", "minimum DC gain", 1.0),
+    Bound("min_gbw", "gbw_hz", "min", "Hz", "minimum GBW"),
+    Bound("min_phase_margin", "phase_margin_deg", "min", "deg", "minimum phase margin", 1.0),
+    Bound("min_gain_margin", "gain_margin_db", "min", "dB", "minimum gain margin", 1.0),
+    Bound("min_slew_rate", "slew_v_per_s", "min", "V/s", "minimum slew rate"),
+    Bound("min_output_swing", "swing_v", "min", "V", "minimum output swing (peak to peak)"),
+    Bound("max_power", "power_w", "max", "W", "maximum power"),
+    Bound("max_area", "area_m2", "max", "m^2", "maximum area"),
+    Bound("max_offset_sigma", "offset_sigma_v", "max", "V", "maximum 1σ offset"),
+    Bound("max_noise_density", "noise_thermal_v_rthz", "max", "V/sqrt(Hz)", "maximum white noise density"),
+    Bound("max_noise_rms", "noise_rms_v", "max", "V", "maximum noise in band"),
+    Bound("min_output_current", "peak_out_a", "min", "A", "minimum output current"),
+    Bound("min_cmrr", "cmrr_db", "min", "dB", "minimum CMRR", 1.0),
+    Bound("min_psrr", "psrr_db", "min", "dB", "minimum PSRR", 1.0),
+    Bound("saturation_margin", "sat_min_v", "min", "V", "saturation margin on every device", 0.1),
+)}
+
+
+@dataclass(frozen=True)
+class Rule:
+    """A constraint every design obeys whatever the study says (`scale` normalizes its violation)."""
+
+    key: str
+    metric: str
+    sense: Sense
+    value: float
+    scale: float
+    why: str
+
+
+RULES: dict[str, Rule] = {r.key: r for r in (
+    Rule("min_width", "min_width_ratio", "min", 1.0, 1.0, "no device narrower than the technology's minimum"),
+    Rule("dc_solved", "dc_residual", "max", 1e-3, 1e-3,
+         "the DC operating point satisfies KCL to 0.1 % of the supply current"),
+    Rule("open_loop_stable", "rhp_poles", "max", 0.0, 1.0,
+         "an open loop with right-half-plane poles is unstable whatever its phase margin reads"),
+)}
+
+
+# The input common-mode range a study asks for, as two bounds on what the amplifier accepts: the lowest
+# level it accepts must lie below the range's low end, the highest above its high end (values: the range).
+INPUT_CM = (Rule("input_cm_low", "cm_low_v", "max", float("nan"), 0.1, "accepts the lowest input common mode"),
+            Rule("input_cm_high", "cm_high_v", "min", float("nan"), 0.1, "accepts the highest input common mode"))
+
+
+@dataclass(frozen=True)
+class Condition:
+    """A spec key that describes the surroundings rather than bounding a metric."""
+
+    key: str
+    dimension: str
+    label: str
+    unit: str           # shown unit ("eng" formatting)
+    required: bool = False
+    form: Literal["value", "range", "band"] = "value"
+
+
+CONDITIONS: dict[str, Condition] = {c.key: c for c in (
+    Condition("supply", "V", "supply", "V", required=True),
+    Condition("load_capacitance", "F", "load capacitance", "F", required=True),
+    Condition("load_resistance", "Ohm", "load resistance", "Ω"),
+    Condition("input_cm", "V", "input common mode", "V", form="range"),
+    Condition("noise_band", "Hz", "noise band", "Hz", form="band"),
+)}
+
+# Saturation headroom kept on every device unless the study says otherwise (common practice: 50-100 mV).
+DEFAULT_SATURATION_MARGIN = 0.05
+
+
+def spec_keys() -> tuple[str, ...]:
+    return tuple(CONDITIONS) + tuple(BOUNDS)
+
+
+def format_spec(key: str, value) -> str:
+    """A spec value as a person reads it, in the unit of the metric it bounds."""
+    if key in BOUNDS:
+        return METRICS[BOUNDS[key].metric].format(value)
+    condition = CONDITIONS[key]
+    if isinstance(value, (tuple, list)):
+        low, high = value
+        if low == high:
+            return eng(low, condition.unit)
+        return f"{eng(low, condition.unit)} to {eng(high, condition.unit)}"
+    return eng(value, condition.unit)
+
+
+def spec_label(key: str) -> str:
+    return BOUNDS[key].label if key in BOUNDS else CONDITIONS[key].label
+
+
+# How closely `ampfront check` expects ngspice to agree with the model, per technology kind: ("abs", bound in
+# the metric's unit) or ("rel", fraction). Square law against ngspice level 1 is the same equations, so only
+# numerics separate them; tables against BSIM4 add interpolation and the model's own noise and charge
+# formulation. Bounds measured on every topology (DEVELOPERS.md, known disagreements).
+AGREEMENT: dict[str, dict[str, tuple[str, float]]] = {
+    "gain_db": {"square_law": ("abs", 0.5), "gm_id_tables": ("abs", 2.0)},
+    "gbw_hz": {"square_law": ("rel", 0.05), "gm_id_tables": ("rel", 0.10)},
+    "phase_margin_deg": {"square_law": ("abs", 3.0), "gm_id_tables": ("abs", 5.0)},
+    "supply_current_a": {"square_law": ("rel", 0.02), "gm_id_tables": ("rel", 0.03)},
+    "noise_1hz_v_rthz": {"square_law": ("rel", 0.05), "gm_id_tables": ("rel", 0.15)},
+    "noise_100hz_v_rthz": {"square_law": ("rel", 0.05), "gm_id_tables": ("rel", 0.15)},
+    "cmrr_db": {"square_law": ("abs", 2.0), "gm_id_tables": ("abs", 6.0)},
+    "psrr_db": {"square_law": ("abs", 2.0), "gm_id_tables": ("abs", 6.0)},
+}
