@@ -1,0 +1,386 @@
+"""Stability as a designer judges it: the loop closed at feedback factor beta, from the same small-signal
+circuit the open-loop testbench measures, vectorized over the population.
+
+The amplifier is non-inverting from inp to out. Closing the loop at beta means v(inn) = beta * v(out): the
+nodal equations of the open loop with both inputs as sources,
+
+    (G + sC) x + (g_p + s c_p) v(inp) + (g_n + s c_n) v(inn) = 0,
+
+become, with v(inn) = beta * x_out, a circuit of the same nodes whose matrices carry beta * (g_n + s c_n) in
+the output column: G' = G + beta g_n e_out^T, C' = C + beta c_n e_out^T. Its poles are the closed-loop
+poles; its response to v(inp) is the closed-loop transfer whose step response gives overshoot and
+settling. By the matrix determinant lemma det(G' + sC') = det(G + sC) (1 + T(s)) with the return ratio
+T(s) = -beta * v(out)/v(inn) (inp at AC ground): T is the loop gain whose Nyquist plot decides the closed
+loop, and the one read here for conditional stability and phase margin. It equals beta times the open-loop
+gain the testbench reads from inp up to the pair's common-mode feedthrough.
+
+The inn column comes from the evaluator's own circuits: the common-mode circuit drives inp and inn
+together, the differential one inp alone, over the same nodes, so their last columns differ by exactly
+the inn column. No second copy of the circuit stamping exists here.
+
+Metrics (`stability_metrics`), arrays of shape (designs,), NaN for designs whose circuit is not finite:
+    cl_rhp_poles           closed-loop poles with Re(s) >= 0 (count; marginal poles count as unstable)
+    cl_stable              1 where cl_rhp_poles == 0, else 0
+    cl_pole_hz             |s| / 2 pi of the dominant closed-loop pole (the mode carrying the largest part
+                           of the step transient; a complex pair counts as one), Hz
+    cl_damping             -Re(s) / |s| of that pole (1 for a real pole)
+    overshoot_pct          small-step overshoot of v(out) above its final value, % of the final value
+                           (inf when closed-loop unstable)
+    settling_s             time after which the small-step response stays within SETTLE_BAND of its final
+                           value, s (inf when closed-loop unstable)
+    loop_crossover_hz      last frequency where |T| falls through 1, Hz (0 when |T(0)| <= 1)
+    loop_phase_margin_deg  180 deg + phase of T at that crossover, referred to the nearest odd multiple
+                           of -180 deg, so in [-180, 180): a testbench whose continuous phase is a full
+                           turn off (a sharp doublet unwrapped the other way round) reads the same margin
+    loop_phase_min_deg     lowest net phase of T (unwrapped continuously from DC, where a loop of
+                           negative feedback has 0 deg) at any frequency where |T| > 1, deg
+    conditionally_stable   1 where the closed loop is stable although the loop phase falls below -180 deg
+                           while |T| > 1 (below the crossover): it would go unstable if the loop gain
+                           dropped there (supply, corner, a lower beta); else 0
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .base import Build, Conditions
+from .smallsignal import Circuit, solve_batched
+
+SETTLE_BAND = 0.01          # settling band, fraction of the final value
+# A pole whose time constant lam = -1/s is this small relative to the slowest mode of its design is taken
+# as infinite: a singular C' (a node without capacitance) leaves exact zeros in G'^-1 C' that LAPACK returns
+# as values of order eps * max|lam|; read as poles they would sit at random sides of the imaginary axis.
+INFINITE_POLE = 1e-11
+# Modes of the step response smaller than this fraction of the final value neither move the overshoot nor
+# reach the settling band; the time grid is not stretched to resolve them (they are still summed).
+NEGLIGIBLE_MODE = 1e-6
+TIME_POINTS = 600           # log-spaced step-response samples per design
+RING_SAMPLES = 12           # linear samples per period of the fastest ringing mode
+# A loop ringing for more cycles than MAX_RING_POINTS / RING_SAMPLES before it settles (damping below about
+# 0.002) is sampled more coarsely: its overshoot alone rules it out.
+MAX_RING_POINTS = 8000
+PER_DECADE = 24             # loop-gain grid density; one real pole turns the phase <= 3 deg a step
+MODAL_TOLERANCE = 1e-6      # modal vs direct solve, relative, at the probe frequencies
+
+
+def inverting_column(differential: Circuit, common_mode: Circuit) -> tuple[np.ndarray, np.ndarray]:
+    """The inn column (G part, C part) of the nodal equations: common-mode drive minus differential drive."""
+    if differential.nodes != common_mode.nodes:
+        raise ValueError("differential and common-mode circuits must share their nodes")
+    n = len(differential.nodes)
+    return (common_mode.G[:, :n, n] - differential.G[:, :n, n],
+            common_mode.C[:, :n, n] - differential.C[:, :n, n])
+
+
+class _Modal:
+    """x_out(s) = sum_i (r0_i + s r1_i) / (1 + s lam_i) for (G + sC) x = -(b0 + s b1), as in
+    smallsignal.Modal but for any pair of input columns (and kept here so its residues are at hand)."""
+
+    def __init__(self, g, c, b0, b1, out: int):
+        n = g.shape[1]
+        rhs = np.concatenate([c, -b0[:, :, None], -b1[:, :, None]], axis=2)
+        sol = np.linalg.solve(g, rhs)
+        self.lam, vectors = np.linalg.eig(sol[:, :, :n])
+        coef = np.linalg.solve(vectors, sol[:, :, n:].astype(complex))
+        row = vectors[:, out, :]
+        self.r0, self.r1 = row * coef[:, :, 0], row * coef[:, :, 1]
+        self.dc = sol[:, out, n]
+        self.g, self.c, self.b0, self.b1, self.out = g, c, b0, b1, out
+
+    def response(self, freqs) -> np.ndarray:
+        s = 2j * np.pi * np.asarray(freqs, float)
+        s = np.broadcast_to(s, (len(self.lam), s.shape[-1]))[:, :, None]
+        return ((self.r0[:, None, :] + s * self.r1[:, None, :]) / (1.0 + s * self.lam[:, None, :])).sum(axis=2)
+
+    def direct(self, freqs) -> np.ndarray:
+        """The same response by complex solves, frequency by frequency (all designs at once)."""
+        freqs = np.broadcast_to(np.asarray(freqs, float), (len(self.lam), np.shape(freqs)[-1]))
+        out = np.empty(freqs.shape, complex)
+        for k in range(freqs.shape[1]):
+            s = 2j * np.pi * freqs[:, k]
+            a = self.g + s[:, None, None] * self.c
+            out[:, k] = solve_batched(a, -(self.b0 + s[:, None] * self.b1))[:, self.out]
+        return out
+
+    def checked(self, freqs) -> np.ndarray:
+        """Designs whose modal response misses the direct one at `freqs` (near-defective eigenvectors)."""
+        with np.errstate(all="ignore"):
+            fast, slow = self.response(freqs), self.direct(freqs)
+            return ~(np.abs(fast - slow) <= MODAL_TOLERANCE * np.abs(slow)).all(axis=1)
+
+
+def _finite_poles(lam: np.ndarray) -> np.ndarray:
+    """Mask of modes that are finite poles (see INFINITE_POLE)."""
+    scale = np.abs(lam).max(axis=1, keepdims=True)
+    return np.abs(lam) > INFINITE_POLE * scale
+
+
+def _loop_gain(differential: Circuit, g_n, c_n, beta: float):
+    """Return ratio T(jw) of the loop broken at inn, as a function of frequency (designs, F) -> complex."""
+    n = len(differential.nodes)
+    out = differential.nodes.index("out")
+    modal = _Modal(differential.G[:, :n, :n], differential.C[:, :n, :n], g_n, c_n, out)
+    return modal, lambda f: -beta * modal.response(f)
+
+
+def _phase_reading(response, t0: np.ndarray, f_lo: float, f_hi: float):
+    """Crossover, phase margin and lowest phase above unity gain of the loop gain T.
+
+    The phase is unwrapped along a log grid from DC, where T(0) is real: 0 deg for negative feedback
+    (T(0) > 0), -180 deg when the loop feeds back positively at DC. The grid's lowest phase where |T| > 1 is
+    refined by golden-section search around it, and the phase at the refined crossover joins it, so a dip
+    narrower than a grid step is not lost.
+    """
+    designs = len(t0)
+    grid = np.logspace(np.log10(f_lo), np.log10(f_hi), int(round(np.log10(f_hi / f_lo) * PER_DECADE)) + 1)
+    h = response(grid)
+    start = np.where(t0 < 0, -np.pi, 0.0)
+    h = np.concatenate([np.abs(t0)[:, None] * np.exp(1j * start)[:, None], h], axis=1)
+    phase = np.unwrap(np.angle(h), axis=1)
+    phase += (start - phase[:, 0])[:, None]
+    phase, h = phase[:, 1:], h[:, 1:]
+    mag = np.log(np.abs(h))
+    logf = np.log(grid)
+    rows = np.arange(designs)
+
+    def phase_near(f, ref):
+        """Phase of T at f (designs,), on the branch within half a turn of ref."""
+        value = response(f[:, None])[:, 0]
+        return ref + np.angle(value * np.exp(-1j * ref))
+
+    above = mag > 0.0
+    # The last fall through unity: beyond it the loop gain stays below one on the grid.
+    falls = above[:, :-1] & ~above[:, 1:]
+    has_cross = falls.any(axis=1) & above[:, 0]
+    k = np.where(has_cross, falls.shape[1] - 1 - np.argmax(falls[:, ::-1], axis=1), 0) + 1
+    lo_f, hi_f, lo_m, hi_m = logf[k - 1], logf[k], mag[rows, k - 1], mag[rows, k]
+    for _ in range(8):   # regula falsi on log|T| against log f
+        t = np.clip(lo_m / np.where(lo_m == hi_m, 1.0, lo_m - hi_m), 0.0, 1.0)
+        mid = lo_f + t * (hi_f - lo_f)
+        mid_m = np.log(np.abs(response(np.exp(mid)[:, None])[:, 0]))
+        up = mid_m > 0
+        lo_f, lo_m = np.where(up, mid, lo_f), np.where(up, mid_m, lo_m)
+        hi_f, hi_m = np.where(up, hi_f, mid), np.where(up, hi_m, mid_m)
+    t = np.clip(lo_m / np.where(lo_m == hi_m, 1.0, lo_m - hi_m), 0.0, 1.0)
+    f_c = np.exp(lo_f + t * (hi_f - lo_f))
+    phase_c = phase_near(f_c, phase[rows, k - 1])
+    margin = np.degrees(phase_c) + 180.0
+    margin = (margin + 180.0) % 360.0 - 180.0
+
+    masked = np.where(above, phase, np.inf)
+    j = np.argmin(masked, axis=1)
+    grid_min = masked[rows, j]
+    # Golden-section search for the phase minimum between the grid neighbours of the lowest point.
+    a, b = logf[np.maximum(j - 1, 0)], logf[np.minimum(j + 1, len(grid) - 1)]
+    ref = phase[rows, j]
+    ratio = (np.sqrt(5.0) - 1.0) / 2.0
+    for _ in range(30):
+        x1, x2 = b - ratio * (b - a), a + ratio * (b - a)
+        p1, p2 = phase_near(np.exp(x1), ref), phase_near(np.exp(x2), ref)
+        lower = p1 < p2
+        a, b = np.where(lower, a, x1), np.where(lower, x2, b)
+    f_min = np.exp(0.5 * (a + b))
+    value = response(f_min[:, None])[:, 0]
+    refined = ref + np.angle(value * np.exp(-1j * ref))
+    refined = np.where(np.abs(value) > 1.0, refined, np.inf)
+    lowest = np.fmin(np.fmin(grid_min, refined), np.where(has_cross, phase_c, np.inf))
+    lowest = np.where(above.any(axis=1), np.degrees(lowest), np.nan)
+    return (np.where(has_cross, f_c, 0.0), np.where(has_cross, margin, np.nan), lowest)
+
+
+def _step(modal: _Modal, finite: np.ndarray, stable: np.ndarray):
+    """Overshoot (%) and settling time (s) of the closed loop's response to a unit step at inp.
+
+    From the modal form, y(t) = sum_i r0_i + sum_i c_i exp(p_i t) with p_i = -1/lam_i and
+    c_i = r1_i / lam_i - r0_i (infinite poles contribute their r0 step and an impulse at t = 0 only).
+    Each design is sampled on two grids merged: log-spaced from well before its fastest significant mode to
+    where its slowest has decayed to 1e-4 of the final value (fast edges, slow doublet tails), and
+    linear with RING_SAMPLES a period of its fastest ringing mode for as long as any ringing mode still
+    exceeds a tenth of the band (so the last excursion out of the band is not stepped over). The peak is
+    then refined by golden section and the settling instant by bisection, both on the exact sum.
+    """
+    lam = np.where(finite, modal.lam, 1.0)
+    p = np.where(finite, -1.0 / lam, 0.0)
+    c = np.where(finite, modal.r1 / lam - modal.r0, 0.0)
+    final = modal.r0.sum(axis=1).real
+    scale = np.maximum(np.abs(final), 1e-300)
+    rel = np.abs(c) / scale[:, None]
+    significant = finite & (rel > NEGLIGIBLE_MODE)
+    decay = np.where(significant, -p.real, 1.0)
+    ringing = significant & (np.abs(p.imag) > 1e-9 * np.abs(p))
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        t_end = np.where(significant, np.log(np.maximum(rel, 1.0) / 1e-4) / decay, -np.inf).max(axis=1)
+        t_start = 1e-3 / np.where(significant, np.abs(p), -np.inf).max(axis=1)
+        t_ring = np.where(ringing, np.log(np.maximum(rel / (0.1 * SETTLE_BAND), 1.0)) / decay, 0.0).max(axis=1)
+        f_ring = np.where(ringing, np.abs(p.imag), 0.0).max(axis=1) / (2 * np.pi)
+    ok = stable & np.isfinite(t_end) & np.isfinite(t_start) & (t_end > t_start)
+    t_start, t_end = np.where(ok, t_start, 1.0), np.where(ok, t_end, 10.0)
+    t_ring = np.where(ok, np.minimum(t_ring, t_end), 0.0)
+    cycles = np.where(ok, f_ring * t_ring, 0.0)
+    # Designs are taken in groups of like ringing, so one loop that rings long does not lengthen the time
+    # axis of the whole population: a power of two of linear samples per group.
+    need = np.clip(np.ceil(RING_SAMPLES * cycles), 16, MAX_RING_POINTS)
+    group = 2 ** np.ceil(np.log2(need)).astype(int)
+    overshoot = np.full(len(final), np.inf)
+    settling = np.full(len(final), np.inf)
+    for points in np.unique(group):
+        rows = np.flatnonzero(group == points)
+        o, t = _sampled_step(p[rows], c[rows], final[rows], scale[rows], t_start[rows], t_end[rows],
+                             t_ring[rows], int(points))
+        overshoot[rows], settling[rows] = o, t
+    overshoot = np.where(ok, overshoot, np.inf)
+    settling = np.where(ok, settling, np.inf)
+    return overshoot, settling
+
+
+def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int):
+    """Overshoot and settling of y(t) = final + sum_i c_i exp(p_i t) on the grids `_step` describes."""
+    # Only the modes that matter to some design of the group are summed.
+    keep = (np.abs(c) > NEGLIGIBLE_MODE * scale[:, None]).any(axis=0)
+    p, c = p[:, keep], c[:, keep]
+    log_grid = t_start[:, None] * (t_end / t_start)[:, None] ** np.linspace(0.0, 1.0, TIME_POINTS)[None, :]
+    lin_grid = t_ring[:, None] * np.linspace(0.0, 1.0, lin_points + 1)[None, 1:]
+    times = np.sort(np.concatenate([log_grid, np.maximum(lin_grid, t_start[:, None])], axis=1), axis=1)
+    size = times.shape[1]
+
+    def y(t):
+        """Step response at times t (designs, K); mode by mode to keep memory at (designs, K)."""
+        total = np.zeros(t.shape)
+        for j in range(c.shape[1]):
+            total += (c[:, j, None] * np.exp(p[:, j, None] * t)).real
+        return final[:, None] + total
+
+    sign = np.where(final < 0, -1.0, 1.0)
+
+    def error(t):
+        return (y(t) - final[:, None]) * (sign / scale)[:, None]
+
+    err = error(times)
+    rows = np.arange(len(final))
+    k = np.argmax(err, axis=1)
+    a = times[rows, np.maximum(k - 1, 0)]
+    b = times[rows, np.minimum(k + 1, size - 1)]
+    ratio = (np.sqrt(5.0) - 1.0) / 2.0
+    for _ in range(40):
+        x1, x2 = b - ratio * (b - a), a + ratio * (b - a)
+        higher = error(x1[:, None])[:, 0] > error(x2[:, None])[:, 0]
+        a, b = np.where(higher, a, x1), np.where(higher, x2, b)
+    peak = np.fmax(err[rows, k], error((0.5 * (a + b))[:, None])[:, 0])
+    overshoot = 100.0 * np.maximum(peak, 0.0)
+
+    outside = np.abs(err) > SETTLE_BAND
+    last = size - 1 - np.argmax(outside[:, ::-1], axis=1)
+    never = ~outside.any(axis=1)
+    lo = times[rows, last]
+    hi = times[rows, np.minimum(last + 1, size - 1)]
+    for _ in range(40):
+        mid = 0.5 * (lo + hi)
+        out_band = np.abs(error(mid[:, None])[:, 0]) > SETTLE_BAND
+        lo, hi = np.where(out_band, mid, lo), np.where(out_band, hi, mid)
+    settling = np.where(never, 0.0, np.where(last >= size - 1, np.inf, hi))
+    return overshoot, settling
+
+
+def closed_loop_matrices(differential: Circuit, common_mode: Circuit, beta: float = 1.0):
+    """(G', C', g_p, c_p, out): the closed loop's nodal matrices (designs, n, n), the inp column it is
+    driven through, and the index of the output node."""
+    if not 0.0 < beta <= 1.0:
+        raise ValueError(f"feedback factor beta must lie in (0, 1], got {beta}")
+    n = len(differential.nodes)
+    out = differential.nodes.index("out")
+    g_n, c_n = inverting_column(differential, common_mode)
+    g, c = differential.G[:, :n, :n].copy(), differential.C[:, :n, :n].copy()
+    g[:, :, out] += beta * g_n
+    c[:, :, out] += beta * c_n
+    return g, c, differential.G[:, :n, n].copy(), differential.C[:, :n, n].copy(), out
+
+
+def _sanitized(differential: Circuit, common_mode: Circuit):
+    """The two circuits with a harmless stand-in (every node 1 S to ground, no capacitance) for designs
+    whose elements are not finite, so batched LAPACK calls run; those rows (returned mask) read NaN."""
+    broken = ~(np.isfinite(differential.G).all(axis=(1, 2)) & np.isfinite(differential.C).all(axis=(1, 2))
+               & np.isfinite(common_mode.G).all(axis=(1, 2)) & np.isfinite(common_mode.C).all(axis=(1, 2)))
+    if broken.any():
+        size = differential.G.shape[1]
+        differential = differential.subset(np.arange(differential.designs))
+        common_mode = common_mode.subset(np.arange(common_mode.designs))
+        for circuit in (differential, common_mode):
+            circuit.G[broken], circuit.C[broken] = np.eye(size), 0.0
+    return differential, common_mode, broken
+
+
+def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float = 1.0) -> np.ndarray:
+    """Finite closed-loop poles in rad/s, (designs, n) complex; NaN for poles at infinity and for designs
+    whose circuit is not finite."""
+    differential, common_mode, broken = _sanitized(differential, common_mode)
+    g, c, _, _, _ = closed_loop_matrices(differential, common_mode, beta)
+    lam = np.linalg.eigvals(np.linalg.solve(g, c))
+    finite = _finite_poles(lam) & ~broken[:, None]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where(finite, -1.0 / np.where(finite, lam, 1.0), np.nan + 0j)
+
+
+def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: float = 1.0,
+                            f_lo: float = 1e-3, f_hi: float = 1e12) -> dict[str, np.ndarray]:
+    """The stability metrics from the evaluator's differential and common-mode circuits (see module doc)."""
+    designs = differential.designs
+    differential, common_mode, broken = _sanitized(differential, common_mode)
+    g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta)
+    g_n, c_n = inverting_column(differential, common_mode)
+    with np.errstate(all="ignore"):
+        closed = _Modal(g, c, g_p, c_p, out)
+        finite = _finite_poles(closed.lam)
+        lam = np.where(finite, closed.lam, 1.0)
+        poles = np.where(finite, -1.0 / lam, 0.0)
+        # Re(lam) <= 0 is Re(s) >= 0: the marginal case counts against the design.
+        rhp = (finite & (closed.lam.real <= 1e-12 * np.abs(closed.lam))).sum(axis=1).astype(float)
+        stable = rhp == 0
+
+        weight = np.where(finite, np.abs(closed.r1 / lam - closed.r0), -1.0)
+        dominant = poles[np.arange(designs), np.argmax(weight, axis=1)]
+        pole_hz = np.abs(dominant) / (2 * np.pi)
+        damping = -dominant.real / np.abs(dominant)
+
+        # Probe the modal forms where they matter: at the dominant closed-loop pole's frequency.
+        probe = np.where(pole_hz > 0, pole_hz, 1.0)[:, None] * np.array([0.5, 1.0, 2.0])
+        bad_closed = closed.checked(probe)
+        overshoot, settling = _step(closed, finite, stable)
+
+        opened, loop = _loop_gain(differential, g_n, c_n, beta)
+        bad_open = opened.checked(probe)
+        t0 = -beta * opened.dc.real
+        crossover, margin, lowest = _phase_reading(loop, t0, f_lo, f_hi)
+        if bad_open.any():
+            rows = np.flatnonzero(bad_open)
+            sub = _Modal(g=opened.g[rows], c=opened.c[rows], b0=opened.b0[rows], b1=opened.b1[rows], out=out)
+            redo = _phase_reading(lambda f: -beta * sub.direct(f), t0[rows], f_lo, f_hi)
+            for target, value in zip((crossover, margin, lowest), redo):
+                target[rows] = value
+    # The step response has no direct-solve fallback: a near-defective closed loop (coincident poles to
+    # within the modal tolerance) reads NaN rather than a number that may be wrong.
+    overshoot[bad_closed] = np.nan
+    settling[bad_closed] = np.nan
+    conditional = (stable & (lowest < -180.0)).astype(float)
+    metrics = {
+        "cl_rhp_poles": rhp,
+        "cl_stable": stable.astype(float),
+        "cl_pole_hz": pole_hz,
+        "cl_damping": damping,
+        "overshoot_pct": overshoot,
+        "settling_s": settling,
+        "loop_crossover_hz": crossover,
+        "loop_phase_margin_deg": margin,
+        "loop_phase_min_deg": lowest,
+        "conditionally_stable": conditional,
+    }
+    for value in metrics.values():
+        value[broken] = np.nan
+    return metrics
+
+
+def stability_metrics(build: Build, cond: Conditions, beta: float = 1.0) -> dict[str, np.ndarray]:
+    """Closed-loop stability, conditional stability and small-step response at feedback factor beta."""
+    from .evaluate import small_signal   # evaluate may import this module to add the metrics
+
+    return stability_from_circuits(small_signal(build, cond, "differential"),
+                                   small_signal(build, cond, "common_mode"), beta)
