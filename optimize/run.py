@@ -21,6 +21,7 @@ from ampfront.optimize.search.merge import merged_front
 from ampfront.optimize.search.outcome import Infeasible, Outcome, TopologyFront
 from ampfront.optimize.search.single import search_topology
 from ampfront.optimize.spec.study import Study, load_study
+from ampfront.topologies.catalog import M
 from ampfront.topologies.process.techfile import file_hash, load
 
 MANIFEST_FORMAT = "ampfront-result/2"
@@ -48,8 +49,13 @@ def write_netlists(folder: Path, study: Study, tech, name: str, table: pd.DataFr
     if tech.spice_init:
         # ngspice reads .spiceinit from the folder it starts in: the testbenches run as they are from here.
         (folder / ".spiceinit").write_text("\n".join(tech.spice_init) + "\n")
-    for i, design in enumerate(table["design"]):
-        for file, text in netlist.design_files(build, i, tech, study.conditions, design, topology.title).items():
+    for i, (design, gbw, settling) in enumerate(zip(table["design"], table[M.gbw_hz], table[M.settling_s])):
+        horizon = netlist.step_horizon(gbw, settling)
+        try:
+            files = netlist.design_files(build, i, tech, study.conditions, design, topology.title, horizon)
+        except netlist.NetlistError:
+            continue   # a closest design of an infeasible study that has no finite circuit to write
+        for file, text in files.items():
             (folder / file).write_text(text)
 
 

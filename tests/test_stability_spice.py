@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 
 from ampfront import topologies
-from ampfront.optimize.run import search_topology
+from ampfront.optimize.search.single import search_topology
 from ampfront.optimize.spec.study import load_study
 from ampfront.topologies.evaluate import small_signal
 from ampfront.topologies.process.techfile import load
@@ -122,3 +122,32 @@ def test_small_step_overshoot_and_settling_match_ngspice(fronts, tmp_path):
                   f"settling {metrics['settling_s'][k]:.4g} s vs {settled:.4g} s")
             compared += 1
     assert compared >= 3
+
+
+@pytest.mark.spice
+def test_unstable_closed_loop_despite_open_loop_margins_oscillates_in_ngspice(tmp_path):
+    """A design whose open loop reads a comfortable phase and gain margin, but whose loop closed at the
+    inverting input has a right-half-plane pole pair: ngspice's unity-gain transient grows, as the model
+    says, and the always-on rule keeps such designs off every front (the open-loop margins alone did not)."""
+    from ampfront.topologies.process.techfile import shipped
+    from tests.helpers import DEMO_CONDITIONS, random_designs
+
+    tech = load(shipped()["sky130"])
+    topology = topologies.available()["telescopic_cascode"]
+    x = random_designs(topology, tech, 3000, seed=17)
+    metrics, build = topologies.evaluate(topology, x, tech, DEMO_CONDITIONS)
+    misleading = np.flatnonzero((metrics["cl_rhp_poles"] > 0) & (metrics["phase_margin_deg"] >= 45)
+                                & (metrics["gain_margin_db"] >= 6) & (metrics["rhp_poles"] == 0)
+                                & (metrics["gain_db"] > 30))
+    assert len(misleading) > 0, "no such design in the sample"
+    k = int(misleading[0])
+    poles = closed_loop_poles(small_signal(build, DEMO_CONDITIONS), small_signal(build, DEMO_CONDITIONS, "common_mode"),
+                              1.0)[k]
+    growing = poles[np.isfinite(poles) & (poles.real > 0)]
+    period = 2 * np.pi / np.abs(growing.imag).max()
+    rate = growing.real.max()
+    t_stop = max(12 * period, 4 / rate)
+    t, v = spice_step(build, k, tech, DEMO_CONDITIONS, 1.0, tmp_path, 1e-3, t_stop, t_stop / 4000)
+    ripple = lambda window: np.ptp(v[(t > window[0]) & (t < window[1])])  # noqa: E731
+    early, late = ripple((0.2 * t_stop, 0.4 * t_stop)), ripple((0.8 * t_stop, t_stop))
+    assert late > 2 * early, (early, late)   # the oscillation grows (or saturates far above the step)

@@ -44,6 +44,7 @@ class Conditions:
     v_out: np.ndarray | float | None = None
     i_out: np.ndarray | float = 0.0   # DC current pushed into the output node by what follows it, A
     noise_band: tuple[float, float] = (1.0, 1e6)   # Hz, the band input-referred RMS noise integrates over
+    beta: float = 1.0       # feedback factor the loop is closed at for the stability figures (unity gain)
 
     @property
     def out_level(self):

@@ -62,6 +62,20 @@ _DECLARED = (
     _m("cmrr_db", "dB", "CMRR", "max", "fixed", in_report=True, doc="low-frequency, unmismatched circuit"),
     _m("psrr_db", "dB", "PSRR", "max", "fixed", in_report=True, doc="low-frequency, from the positive supply"),
     _m("output_resistance_ohm", "Ω", "Output resistance", "min", in_report=True),
+    # The loop closed at the study's feedback factor (unity by default), from the same circuit.
+    _m("cl_rhp_poles", "1", "Closed-loop RHP poles", "min", "fixed", display_unit="",
+       doc="closed-loop poles with Re(s) >= 0: unstable however the margins read"),
+    _m("cl_stable", "1", "Closed-loop stable", "max", "fixed", display_unit=""),
+    _m("cl_pole_hz", "Hz", "Dominant closed-loop pole"),
+    _m("cl_damping", "1", "Closed-loop damping", "max", "fixed", display_unit=""),
+    _m("overshoot_pct", "%", "Small-step overshoot", "min", "fixed", in_report=True),
+    _m("settling_s", "s", "Small-step settling (1 %)", "min"),
+    _m("loop_crossover_hz", "Hz", "Loop-gain crossover", "max"),
+    _m("loop_phase_margin_deg", "deg", "Loop phase margin", "max", "fixed", display_unit="°", in_report=True,
+       doc="of the loop broken at the inverting input, where the feedback closes"),
+    _m("loop_phase_min_deg", "deg", "Lowest loop phase above unity gain", "max", "fixed", display_unit="°"),
+    _m("conditionally_stable", "1", "Conditionally stable", "min", "fixed", display_unit="",
+       doc="stable, but the loop phase falls below -180 deg while the loop gain exceeds one"),
     # Budgets.
     _m("power_w", "W", "Power", "min", in_report=True),
     _m("supply_current_a", "A", "Supply current", "min"),
@@ -164,12 +178,17 @@ class Bound:
     label: str
     floor: float = 0.0
     doc: str = ""
+    # Further metrics the same bound holds: the phase margin of the open loop as the testbench measures it
+    # and of the loop as the feedback closes it (they part where the tail node's capacitance separates the
+    # two inputs' paths) must both meet it. Their constraints are named <key>_<metric>.
+    also: tuple[str, ...] = ()
 
 
 BOUNDS: dict[str, Bound] = {b.key: b for b in (
     Bound("min_gain", "gain_db", "min", "dB", "minimum DC gain", 1.0),
     Bound("min_gbw", "gbw_hz", "min", "Hz", "minimum GBW"),
-    Bound("min_phase_margin", "phase_margin_deg", "min", "deg", "minimum phase margin", 1.0),
+    Bound("min_phase_margin", "phase_margin_deg", "min", "deg", "minimum phase margin", 1.0,
+          also=("loop_phase_margin_deg",)),
     Bound("min_gain_margin", "gain_margin_db", "min", "dB", "minimum gain margin", 1.0),
     Bound("min_slew_rate", "slew_v_per_s", "min", "V/s", "minimum slew rate"),
     Bound("min_output_swing", "swing_v", "min", "V", "minimum output swing (peak to peak)"),
@@ -203,7 +222,14 @@ RULES: dict[str, Rule] = {r.key: r for r in (
          "the DC operating point satisfies KCL to 0.1 % of the supply current"),
     Rule("open_loop_stable", "rhp_poles", "max", 0.0, 1.0,
          "an open loop with right-half-plane poles is unstable whatever its phase margin reads"),
+    Rule("closed_loop_stable", "cl_rhp_poles", "max", 0.0, 1.0,
+         "the loop closed at the study's feedback factor has no right-half-plane pole"),
+    Rule("not_conditionally_stable", "conditionally_stable", "max", 0.0, 1.0,
+         "no loop phase below -180 deg while the loop gain exceeds one (it could oscillate when slewing "
+         "or when the gain drops); a study may allow it with allow_conditional_stability = true"),
 )}
+# Rules a study may lift (top-level key -> rule).
+OPTIONAL_RULES = {"allow_conditional_stability": "not_conditionally_stable"}
 
 
 # The input common-mode range a study asks for, as two bounds on what the amplifier accepts: the lowest
@@ -270,4 +296,6 @@ AGREEMENT: dict[str, dict[str, tuple[str, float]]] = {
     "noise_100hz_v_rthz": {"square_law": ("rel", 0.05), "gm_id_tables": ("rel", 0.15)},
     "cmrr_db": {"square_law": ("abs", 2.0), "gm_id_tables": ("abs", 6.0)},
     "psrr_db": {"square_law": ("abs", 2.0), "gm_id_tables": ("abs", 6.0)},
+    # Percentage points, from the closed-loop small-step transient (the issue's bound for PM >= 45 deg).
+    "overshoot_pct": {"square_law": ("abs", 3.0), "gm_id_tables": ("abs", 3.0)},
 }

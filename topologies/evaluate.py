@@ -13,6 +13,7 @@ from .process.base import Technology
 from .kcl import node_imbalance
 from .noise import noise_metrics
 from .smallsignal import Circuit, loop_metrics
+from .stability import stability_from_circuits
 
 
 # What the AC source moves in each measurement: the differential (open-loop) gain drives inp with inn held
@@ -66,8 +67,10 @@ def _quarantine(circuit: Circuit) -> None:
         circuit.C[bad] = 0.0
 
 
-def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, cond: Conditions):
-    """Return (metrics, build): metrics maps names to arrays of shape (designs,)."""
+def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, cond: Conditions,
+             step: bool = False):
+    """Return (metrics, build): metrics maps names to arrays of shape (designs,). `step` adds the
+    closed loop's small-step overshoot and settling time (the search leaves them out; outputs ask)."""
     # Dead or off-table devices give inf/NaN for their designs only; the search reads those as violations.
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         build = topology.build(x, tech, cond)
@@ -80,6 +83,7 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         common, supply = small_signal(build, cond, "common_mode"), small_signal(build, cond, "supply")
         a_cm, a_dd = common.dc_gain("out"), supply.dc_gain("out")
         unsolved = circuit.quarantined | unloaded.quarantined | common.quarantined | supply.quarantined
+        stability = stability_from_circuits(circuit, common, cond.beta, step=step)
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     reported = _reported(topology, build)
@@ -117,13 +121,14 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         "swing_v": out_high - out_low,
         **reported,
         **noise,
+        **stability,
         **sat,
     }
     if unsolved.any():
         # Only what the small-signal solve gives is unknown for them; power, area and headroom still tell
         # the search how far such a design is from a working one.
         small = ("gain_db", "gbw_hz", "phase_margin_deg", "gain_margin_db", "rhp_poles", "cmrr_db", "psrr_db",
-                 "output_resistance_ohm", *noise)
+                 "output_resistance_ohm", *noise, *stability)
         metrics.update({k: np.where(unsolved, np.nan, metrics[k]) for k in small})
     return metrics, build
 

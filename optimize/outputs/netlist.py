@@ -65,10 +65,12 @@ def subckt(build: Build, i: int, tech: Technology, name: str, title: str = "", n
     return "\n".join(lines) + "\n"
 
 
-def design_files(build: Build, i: int, tech: Technology, cond: Conditions, design: str, title: str) -> dict[str, str]:
+def design_files(build: Build, i: int, tech: Technology, cond: Conditions, design: str, title: str,
+                 horizon: float) -> dict[str, str]:
     """Every file of one design, by name: its subcircuit (operating point as comments), its open-loop
-    testbench and its output-swing testbench. `ampfront run` writes these; `ampfront check` rebuilds them
-    and runs only what it rebuilt."""
+    testbench, its output-swing testbench and its closed-loop small-step testbench (`horizon`, s: how long
+    the step response is simulated). `ampfront run` writes these; `ampfront check` rebuilds them and runs
+    only what it rebuilt."""
     from ampfront.optimize.outputs.tables import device_table
 
     op = "\n".join("* " + _comment(line) for line in device_table(build, i).to_string(index=False).splitlines())
@@ -77,7 +79,59 @@ def design_files(build: Build, i: int, tech: Technology, cond: Conditions, desig
         sub: subckt(build, i, tech, design, title, op),
         f"{design}_tb.sp": testbench(build, i, tech, cond, design, sub),
         f"{design}_swing.sp": swing_testbench(build, i, tech, cond, design, sub, f"{design}_swing.dat"),
+        f"{design}_step.sp": step_testbench(build, i, tech, cond, design, sub, horizon),
     }
+
+
+# Small enough that every device stays in its small-signal range (the step response is the closed loop's
+# poles and zeros, not slewing), large enough to stand well clear of the simulator's tolerances.
+STEP_V = 1e-3
+STEP_POINTS = 4000
+
+
+def step_horizon(gbw_hz: float, settling_s: float) -> float:
+    """How long to simulate a small step: past the predicted settling, and at least 20 loop time constants."""
+    floor = 20.0 / (2 * math.pi * gbw_hz) if math.isfinite(gbw_hz) and gbw_hz > 0 else 1e-6
+    return max(3.0 * settling_s, floor) if math.isfinite(settling_s) else floor
+
+
+def step_testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: str, subckt_file: str,
+                   horizon: float) -> str:
+    """The loop closed at the study's feedback factor by an ideal VCVS (v(inn) - v_cm = beta (v(out) -
+    v_cm), so nothing but the load loads the output), a STEP_V step at inp one time step long, and the
+    overshoot of v(out) over its final level, in percent of the step it makes."""
+    if not (math.isfinite(horizon) and horizon > 0):
+        raise NetlistError(f"step horizon {horizon!r}")
+    dt = horizon / STEP_POINTS
+    t0, end = dt, horizon + dt
+    tag = RESULT_TAG
+    return "\n".join([
+        f"* ampfront closed-loop small-step testbench for {name}: overshoot at feedback factor {cond.beta:g}",
+        *model_lines(build, i, tech),
+        f".include {subckt_file}",
+        f".temp {tech.temperature - 273.15:g}",
+        f"Vsupply vdd 0 {cond.vdd:.6g}",
+        "Vground vss 0 0",
+        f"Vcm cm 0 {cond.v_cm:.6g}",
+        f"Vin inp cm dc 0 pwl(0 0 {t0:.6g} 0 {2 * t0:.6g} {STEP_V:g})",
+        f"Xamp inp inn out vdd vss {name}",
+        f"Efb inn cm out cm {cond.beta:.12g}",
+        f"Cload out 0 {cond.c_load:.6g}",
+        _load(cond),
+        ".options reltol=1e-6 abstol=1e-15 vntol=1e-9",
+        ".control",
+        "set noaskquit",
+        f"tran {dt:.6g} {end:.6g} 0 {dt:.6g}",
+        f"meas tran v_start find v(out) at={t0:.6g}",
+        f"meas tran v_final avg v(out) from={end - 0.05 * horizon:.6g} to={end:.6g}",
+        f"meas tran v_peak max v(out) from={t0:.6g} to={end:.6g}",
+        "let overshoot = 100 * (v_peak - v_final) / (v_final - v_start)",
+        f"echo {tag} {M.overshoot_pct} $&overshoot",
+        "quit 0",
+        ".endc",
+        ".end",
+        "",
+    ])
 
 
 def model_lines(build: Build, i: int, tech: Technology) -> list[str]:

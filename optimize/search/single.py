@@ -26,7 +26,7 @@ def search_topology(study: Study, tech, name: str, progress: Progress | None) ->
     problem = DesignProblem(topology, tech, study)
     result = run_search(problem, study.population, study.generations, study.seed, progress)
     x = problem.decode(result.X)
-    metrics, build = topologies.evaluate(topology, x, tech, study.conditions)
+    metrics, build = topologies.evaluate(topology, x, tech, study.conditions, step=True)
     names = [f"{topology.prefix}_{i + 1:03d}" for i in range(len(result.X))]
     table = front_table(name, names, metrics, build, x, study.constraints)
     if result.feasible:

@@ -19,9 +19,9 @@ import pandas as pd
 
 from ampfront import topologies
 from ampfront.optimize.outputs.folder import MANIFEST, TOOL_MARK
-from ampfront.optimize.outputs.netlist import IDENTIFIER, NetlistError, design_files
+from ampfront.optimize.outputs.netlist import IDENTIFIER, NetlistError, design_files, step_horizon
 from ampfront.optimize.outputs.tables import X_PREFIX, design_vectors
-from ampfront.optimize.simulator.ngspice import DEFAULT_TIMEOUT_S, SpiceError, simulate, simulate_swing
+from ampfront.optimize.simulator.ngspice import DEFAULT_TIMEOUT_S, SpiceError, simulate, simulate_step, simulate_swing
 from ampfront.optimize.spec.study import Study, load_study
 from ampfront.topologies.catalog import AGREEMENT, M, METRICS
 from ampfront.topologies.errors import InputError
@@ -173,11 +173,12 @@ def check_folder(folder: Path, count: int = 5, timeout: float = DEFAULT_TIMEOUT_
 def _check_topology(received: Received, name: str, group: pd.DataFrame, work: Path, timeout: float) -> list[dict]:
     topology = topologies.available()[name]
     study, tech = received.study, received.tech
-    metrics, build = topologies.evaluate(topology, design_vectors(group), tech, study.conditions)
+    metrics, build = topologies.evaluate(topology, design_vectors(group), tech, study.conditions, step=True)
     rows = []
     for j, design in enumerate(group["design"]):
         try:
-            files = design_files(build, j, tech, study.conditions, design, topology.title)
+            horizon = step_horizon(float(metrics[M.gbw_hz][j]), float(metrics[M.settling_s][j]))
+            files = design_files(build, j, tech, study.conditions, design, topology.title, horizon)
         except NetlistError as error:
             rows.append({"design": design, "topology": name, "within_bounds": False,
                          "status": f"not rebuildable: {error}"})
@@ -205,6 +206,10 @@ def _simulate_design(received: Received, design: str, name: str, model: dict, wo
         got = simulate(work / f"{design}_tb.sp", timeout)
     except SpiceError as error:
         return {**entry, "within_bounds": False, "status": f"failed: {error}"}
+    try:
+        got.update(simulate_step(work / f"{design}_step.sp", timeout))
+    except SpiceError as error:
+        return {**entry, "within_bounds": False, "status": f"step failed: {error}"}
     for metric in AGREEMENT:
         error, within = _judge(metric, received.kind, model[metric], got[metric])
         entry[f"{metric}_model"], entry[f"{metric}_spice"] = model[metric], got[metric]

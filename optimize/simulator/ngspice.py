@@ -74,15 +74,7 @@ def _kill_group(proc: subprocess.Popen) -> None:
 
 def simulate(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, float]:
     """Run one open-loop testbench; return the values it printed (SI units), rejection ratios derived."""
-    stdout = run_deck(testbench, timeout)
-    values: dict[str, float] = {}
-    for line in stdout.splitlines():
-        if line.startswith(RESULT_TAG):
-            parts = line.split()
-            try:
-                values[parts[1]] = float(parts[2])
-            except (IndexError, ValueError):
-                continue
+    values = _tagged(run_deck(testbench, timeout))
     wanted = (*TESTBENCH_METRICS, CM_GAIN, SUPPLY_GAIN)
     missing = [k for k in wanted if k not in values or not math.isfinite(values[k])]
     if missing:
@@ -91,6 +83,26 @@ def simulate(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, f
     out[M.cmrr_db] = out[M.gain_db] - values[CM_GAIN]
     out[M.psrr_db] = out[M.gain_db] - values[SUPPLY_GAIN]
     return out
+
+
+def _tagged(stdout: str) -> dict[str, float]:
+    values: dict[str, float] = {}
+    for line in stdout.splitlines():
+        if line.startswith(RESULT_TAG):
+            parts = line.split()
+            try:
+                values[parts[1]] = float(parts[2])
+            except (IndexError, ValueError):
+                continue
+    return values
+
+
+def simulate_step(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, float]:
+    """Run a closed-loop small-step testbench; return the overshoot it measured (%)."""
+    values = _tagged(run_deck(testbench, timeout))
+    if M.overshoot_pct not in values or not math.isfinite(values[M.overshoot_pct]):
+        raise SpiceError(f"{testbench.name}: ngspice did not measure the overshoot")
+    return {M.overshoot_pct: values[M.overshoot_pct]}
 
 
 # Where the swept gain has fallen this far below mid-scale the output stage has left saturation: the gain

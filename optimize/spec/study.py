@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from ampfront.topologies.base import Conditions
-from ampfront.topologies.catalog import BOUNDS, CONDITIONS, DEFAULT_SATURATION_MARGIN, INPUT_CM, OBJECTIVES, RULES
+from ampfront.topologies.catalog import BOUNDS, CONDITIONS, DEFAULT_SATURATION_MARGIN, INPUT_CM, OBJECTIVES, OPTIONAL_RULES, RULES
 
 from ampfront.topologies.errors import InputError
 from ampfront.topologies.schema import Field, check_keys, parse_toml, read_table, read_toml, suggest
@@ -34,7 +34,7 @@ SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed"
 SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed": (0, 2**32 - 1)}
 SEARCH_DEFAULTS = {"population": 100, "generations": 60, "seed": 1}
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]")
-TOP_KEYS = {"title", "topologies", "objectives", "technology", "corner", "spec", "search"}
+TOP_KEYS = {"title", "topologies", "objectives", "technology", "corner", "spec", "search", *OPTIONAL_RULES}
 
 
 @dataclass(frozen=True)
@@ -174,7 +174,14 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
             raise InputError(source, "corner", f"a corner the technology ships: {', '.join(shipped_corners) or 'none'}"
                              f"{suggest(str(corner), shipped_corners)}", corner)
 
-    constraints = _constraints(spec, cm_range)
+    lifted = set()
+    for key, rule in OPTIONAL_RULES.items():
+        allowed = raw.get(key, False)
+        if not isinstance(allowed, bool):
+            raise InputError(source, key, "true or false", allowed)
+        if allowed:
+            lifted.add(rule)
+    constraints = _constraints(spec, cm_range, frozenset(lifted))
     conditions = Conditions(vdd=supply, c_load=spec["load_capacitance"],
                             r_load=spec.get("load_resistance", np.inf), v_cm=0.5 * (cm_range[0] + cm_range[1]),
                             noise_band=noise_band)
@@ -187,12 +194,14 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
     )
 
 
-def _constraints(spec: dict, cm_range: tuple[float, float]) -> tuple[Constraint, ...]:
+def _constraints(spec: dict, cm_range: tuple[float, float], lifted: frozenset = frozenset()) -> tuple[Constraint, ...]:
     """Every spec bound becomes a constraint (objectives included: a front of designs that meet spec), then
     the rules every design obeys whatever the spec (catalog.RULES)."""
     values = {**spec, "saturation_margin": spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)}
     out = [Constraint(b.key, b.metric, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
            for b in BOUNDS.values() if b.key in values]
-    out += [Constraint(r.key, r.metric, r.sense, r.value, r.scale) for r in RULES.values()]
+    out += [Constraint(f"{b.key}_{m}", m, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
+            for b in BOUNDS.values() if b.key in values for m in b.also]
+    out += [Constraint(r.key, r.metric, r.sense, r.value, r.scale) for r in RULES.values() if r.key not in lifted]
     out += [Constraint(r.key, r.metric, r.sense, level, r.scale) for r, level in zip(INPUT_CM, cm_range)]
     return tuple(out)
