@@ -21,7 +21,7 @@ from ampfront.topologies.catalog import (AGREEMENT, BOUNDS, CONDITIONS, METRICS,
 ROOT = Path(__file__).resolve().parents[1]
 # What a unit looks like once formatted: the quantity's own unit, never another's.
 SHOWN_UNIT = {"V": "V", "F": "F", "Ohm": "Ω", "dB": "dB", "Hz": "Hz", "deg": "°", "V/s": "V/µs", "W": "W",
-              "m^2": "µm²", "V/sqrt(Hz)": "V/√Hz", "A": "A"}
+              "m^2": "µm²", "V/sqrt(Hz)": "V/√Hz", "A": "A", "m": "m"}
 
 
 def _readme_study() -> str:

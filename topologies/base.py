@@ -159,8 +159,9 @@ def snap_length(l, tech: Technology, grid: float = 5e-9):
     return np.where(bad, np.nan, snapped)
 
 
-def length_variable(name: str, tech: Technology, doc: str, span: float = 20.0) -> Variable:
-    return Variable(name, tech.l_min, min(tech.l_max, span * tech.l_min), "m", log=True, doc=doc)
+def length_variable(name: str, tech: Technology, doc: str) -> Variable:
+    """Any length the technology draws (or has characterized): the search box is the process, not a guess."""
+    return Variable(name, tech.l_min, tech.l_max, "m", log=True, doc=doc)
 
 
 def gm_id_variable(name: str, tech: Technology, doc: str) -> Variable:

@@ -80,7 +80,11 @@ _DECLARED = (
     _m("power_w", "W", "Power", "min", in_report=True),
     _m("supply_current_a", "A", "Supply current", "min"),
     _m("area_m2", "m²", "Area", "min", "fixed", scale=1e12, display_unit="µm²", digits=4, in_report=True,
-       doc="gate area of every device plus the capacitors"),
+       doc="devices with their diffusion and the layout overhead, capacitors and resistors (Layout)"),
+    _m("max_device_width_m", "m", "Widest device", "min", doc="total width of the widest device group"),
+    _m("bias_share", "1", "Bias share of supply current", "min", "fixed", scale=100.0, display_unit="%",
+       in_report=True, doc="reference currents of the bias network over the whole supply current"),
+    _m("reference_ratio", "1", "Smallest reference / technology floor", "max", "fixed", display_unit="×"),
     _m("min_width_ratio", "1", "Narrowest device / w_min", "max", "fixed", display_unit="× w_min"),
     _m("sat_min_v", "V", "Smallest saturation margin", "max", doc="min over devices of VDS - Vdsat"),
     _m("dc_residual", "1", "KCL residual", "min", "fixed", display_unit="× supply current"),
@@ -182,6 +186,9 @@ class Bound:
     # and of the loop as the feedback closes it (they part where the tail node's capacitance separates the
     # two inputs' paths) must both meet it. Their constraints are named <key>_<metric>.
     also: tuple[str, ...] = ()
+    # Held even when the study does not set it: what any op-amp block a designer would draw stays within
+    # (0.1 mm² of area, 2 mm of width for one device group; common practice, README "Buildability").
+    default: float | None = None
 
 
 BOUNDS: dict[str, Bound] = {b.key: b for b in (
@@ -193,7 +200,8 @@ BOUNDS: dict[str, Bound] = {b.key: b for b in (
     Bound("min_slew_rate", "slew_v_per_s", "min", "V/s", "minimum slew rate"),
     Bound("min_output_swing", "swing_v", "min", "V", "minimum output swing (peak to peak)"),
     Bound("max_power", "power_w", "max", "W", "maximum power"),
-    Bound("max_area", "area_m2", "max", "m^2", "maximum area"),
+    Bound("max_area", "area_m2", "max", "m^2", "maximum area", default=0.1e-6),
+    Bound("max_device_width", "max_device_width_m", "max", "m", "maximum device width", default=2e-3),
     Bound("max_offset_sigma", "offset_sigma_v", "max", "V", "maximum 1σ offset"),
     Bound("max_noise_density", "noise_thermal_v_rthz", "max", "V/sqrt(Hz)", "maximum white noise density"),
     Bound("max_noise_rms", "noise_rms_v", "max", "V", "maximum noise in band"),
@@ -220,6 +228,8 @@ RULES: dict[str, Rule] = {r.key: r for r in (
     Rule("min_width", "min_width_ratio", "min", 1.0, 1.0, "no device narrower than the technology's minimum"),
     Rule("dc_solved", "dc_residual", "max", 1e-3, 1e-3,
          "the DC operating point satisfies KCL to 0.1 % of the supply current"),
+    Rule("min_reference_current", "reference_ratio", "min", 1.0, 1.0,
+         "no bias reference below the technology's min_reference_current (leakage, mirror matching)"),
     Rule("open_loop_stable", "rhp_poles", "max", 0.0, 1.0,
          "an open loop with right-half-plane poles is unstable whatever its phase margin reads"),
     Rule("closed_loop_stable", "cl_rhp_poles", "max", 0.0, 1.0,

@@ -86,6 +86,7 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         stability = stability_from_circuits(circuit, common, cond.beta, step=step)
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
+    designs = len(build.supply_current)
     reported = _reported(topology, build)
     peak_source, peak_sink = reported["peak_source_a"], reported["peak_sink_a"]
     out_high, out_low = reported.pop("out_high_v"), reported.pop("out_low_v")
@@ -94,8 +95,12 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         # the load resistor allows.
         out_high = np.fmin(out_high, cond.v_cm + peak_source * cond.r_load)
         out_low = np.fmax(out_low, cond.v_cm - peak_sink * cond.r_load)
-    gate_area = sum(d.w * d.l for d in build.devices)
+    layout = tech.layout
+    device_area = sum(layout.device_area(d.w, d.l) for d in build.devices)
     cap_area = sum(e.value for e in build.elements if e.kind == "C") / tech.cap_density
+    res_area = sum(layout.resistor_area(e.value) for e in build.elements if e.kind == "R")
+    references = [e.value for e in build.elements if e.kind == "I"]
+    bias_current = sum(references) if references else np.zeros(designs)
     sat = {f"sat_{d.role}_v": d.vds - d.op.vdsat for d in build.devices}
     # Headroom a topology budgets for parts it draws as ideal sources counts like a device's.
     sat.update({k: reported.pop(k) for k in list(reported) if is_headroom(k)})
@@ -112,7 +117,11 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         "peak_out_a": np.minimum(peak_source, peak_sink),
         "power_w": cond.vdd * build.supply_current,
         "supply_current_a": build.supply_current,
-        "area_m2": gate_area + cap_area,
+        "area_m2": device_area + cap_area + res_area,
+        "max_device_width_m": np.max([d.w for d in build.devices], axis=0),
+        "bias_share": bias_current / build.supply_current,
+        "reference_ratio": (np.min(references, axis=0) / layout.min_reference_current if references
+                            else np.full(designs, np.inf)),
         "min_width_ratio": np.min([d.w / tech.w_min for d in build.devices], axis=0),
         "sat_min_v": np.min(list(sat.values()), axis=0),
         "dc_residual": node_imbalance(build),

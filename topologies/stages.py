@@ -18,7 +18,9 @@ def pair_variables(tech: Technology) -> tuple[Variable, ...]:
     """Design variables of a bias branch feeding a mirror-loaded input pair."""
     return (
         Variable("i_tail", 0.5e-6, 1e-3, "A", log=True, doc="input-pair tail current"),
-        Variable("bias_ratio", 1.0, 8.0, "1", doc="tail current / reference current"),
+        # Designers mirror references up by tens; the reference's own floor is the technology's
+        # min_reference_current (an always-on rule), not this box.
+        Variable("bias_ratio", 1.0, 50.0, "1", log=True, doc="tail current / reference current"),
         gm_id_variable("gmid_in", tech, "gm/ID of the input pair"),
         length_variable("l_in", tech, "input pair length"),
         gm_id_variable("gmid_load", tech, "gm/ID of the mirror load"),

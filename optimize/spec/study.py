@@ -197,7 +197,8 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
 def _constraints(spec: dict, cm_range: tuple[float, float], lifted: frozenset = frozenset()) -> tuple[Constraint, ...]:
     """Every spec bound becomes a constraint (objectives included: a front of designs that meet spec), then
     the rules every design obeys whatever the spec (catalog.RULES)."""
-    values = {**spec, "saturation_margin": spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)}
+    values = {b.key: b.default for b in BOUNDS.values() if b.default is not None}
+    values |= {**spec, "saturation_margin": spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)}
     out = [Constraint(b.key, b.metric, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
            for b in BOUNDS.values() if b.key in values]
     out += [Constraint(f"{b.key}_{m}", m, b.sense, values[b.key], max(abs(values[b.key]), b.floor))

@@ -36,6 +36,27 @@ class OperatingPoint:
     partials: dict[str, np.ndarray] | None = None
 
 
+@dataclass(frozen=True)
+class Layout:
+    """The few layout rules a first-cut area and buildability check needs, SI units."""
+
+    diffusion_length: float = 0.5e-6   # m of source/drain diffusion beside each gate (contacted)
+    # Drawn area of a device over its W x (L + 2 diffusion): wells, guard rings, spacing and local routing.
+    # 2 is common practice for matched analog devices with guard rings, not a foundry figure.
+    overhead: float = 2.0
+    resistor_sheet: float = 1e3        # Ohm per square of the resistor layer used for nulling resistors
+    resistor_width: float = 1e-6       # m, drawn width of those resistors
+    # Smallest reference current a bias branch may carry: leakage and mirror matching stop being
+    # negligible below it (common practice: 100 nA in 0.18-0.13 um processes at room temperature).
+    min_reference_current: float = 100e-9
+
+    def device_area(self, w, l):
+        return self.overhead * w * (l + 2.0 * self.diffusion_length)
+
+    def resistor_area(self, r):
+        return r / self.resistor_sheet * self.resistor_width**2
+
+
 @runtime_checkable
 class Technology(Protocol):
     """A process as ampfront sees it: device physics, a few limits, and how to write it for SPICE."""
@@ -50,6 +71,7 @@ class Technology(Protocol):
     gm_id_bounds: tuple[float, float]  # S/A range the model is valid over
     spice_init: tuple[str, ...]        # lines the netlists' .spiceinit needs (ngspice compatibility mode)
     length_grid: np.ndarray | None     # characterized lengths designs snap to (m), or None: any length
+    layout: Layout                     # area and buildability rules
 
     def operating_point(self, polarity: Polarity, w, l, vgs, vds, vsb) -> OperatingPoint: ...
 

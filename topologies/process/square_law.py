@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .base import OperatingPoint, Polarity
+from .base import Layout, OperatingPoint, Polarity
 
 EPS_OX = 3.9 * 8.854214871e-12  # F/m, the value ngspice uses for SiO2
 
@@ -57,6 +57,7 @@ class SquareLaw:
     spice_init: tuple[str, ...] = ()
     # Square law is a strong-inversion model; below ~0.1 V overdrive it overstates gm (common practice).
     gm_id_bounds: tuple[float, float] = (4.0, 20.0)
+    layout: Layout = Layout()
     # Any length within the limits is drawn (on a 5 nm grid): no characterized set to snap to.
     length_grid = None
 

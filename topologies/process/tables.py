@@ -14,7 +14,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .base import OperatingPoint, Polarity
+from .base import Layout, OperatingPoint, Polarity
 
 LOG_QUANTITIES = ("id", "gm", "gds", "gmb")
 PARTIALS = ("cgg", "cgd", "cgs", "cdg", "cdd", "cds", "csg", "csd", "css")
@@ -175,6 +175,7 @@ class TableProcess:
     avt_n: float = float("nan")         # V*m, Pelgrom coefficients (NaN: unknown)
     avt_p: float = float("nan")
     models_missing: str | None = None   # how to install the model library when it is not installed
+    layout: Layout = Layout()
 
     def avt(self, polarity: Polarity) -> float:
         return self.avt_n if polarity == "n" else self.avt_p

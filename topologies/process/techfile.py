@@ -3,11 +3,15 @@
 from __future__ import annotations
 
 import hashlib
+from dataclasses import replace
 import json
 import re
+
+import numpy as np
 from pathlib import Path
 
 from ampfront.topologies.process import DATA_DIR, LevelOneDevice, SquareLaw, Technology
+from ampfront.topologies.process.base import Layout
 from ampfront.topologies.process.tables import DeviceTable, TableProcess
 
 from ..errors import InputError
@@ -33,6 +37,11 @@ _SQUARE_LAW_TOP = {
     "l_min": Field("m", True), "l_max": Field("m", True), "w_min": Field("m", True),
     "cap_density": Field("F/m^2", True), "diffusion_length": Field("m", True),
     "nmos": Field("table", True), "pmos": Field("table", True),
+}
+# Layout rules (optional; Layout's defaults, marked common practice there, stand in for missing ones).
+_LAYOUT = {
+    "layout_overhead": Field("1"), "resistor_sheet": Field("Ohm"), "resistor_width": Field("m"),
+    "min_reference_current": Field("A"),
 }
 _LEVEL_ONE = {
     "kp": Field("A/V^2", True), "vto": Field("V", True), "lambda_l": Field("m/V", True),
@@ -68,8 +77,31 @@ def resolve(name_or_file: str, relative_to: Path | None = None, source: str = "t
 _TABLE_TOP = {
     "name": Field("str", True), "kind": Field("str", True), "description": Field("str"),
     "supply": Field("V", True), "w_min": Field("m", True), "cap_density": Field("F/m^2", True),
-    "library": Field("str", True), "default_corner": Field("str", True),
+    "library": Field("str", True), "default_corner": Field("str", True), "diffusion_length": Field("m"),
+    **_LAYOUT,
 }
+
+
+def _layout(top: dict) -> Layout:
+    given = {"diffusion_length": top.get("diffusion_length"), "overhead": top.get("layout_overhead"),
+             "resistor_sheet": top.get("resistor_sheet"), "resistor_width": top.get("resistor_width"),
+             "min_reference_current": top.get("min_reference_current")}
+    return Layout(**{k: v for k, v in given.items() if v is not None})
+
+
+def _table_gm_id_bounds(tech: TableProcess) -> tuple[float, float]:
+    """gm/ID from 3 S/A up to the most any characterized length reaches (weak inversion at the table's
+    lowest VGS, VDS 0.9 V): the search may go wherever the tables know the device; a design beyond what its
+    own length reaches reads NaN off the table and loses."""
+    vgs = np.linspace(0.16, 1.2, 200)
+    best = 0.0
+    for polarity in ("n", "p"):
+        for l in tech.length_grid:
+            op = tech.operating_point(polarity, np.full_like(vgs, 4e-6), np.full_like(vgs, l), vgs,
+                                      np.full_like(vgs, 0.9), np.zeros_like(vgs))
+            with np.errstate(all="ignore"):
+                best = max(best, float(np.nanmax(op.gm / op.id)))
+    return 3.0, float(np.floor(best * 0.98))
 _TABLE_CORNER = {"temperature": Field("degC", True, positive=False), "nmos": Field("str", True),
                  "pmos": Field("str", True), "flicker": Field("str")}
 
@@ -89,7 +121,7 @@ def load(path: Path, corner: str | None = None) -> Technology:
         raise InputError(source, "kind", "one of: square_law, gm_id_tables", kind)
     if corner not in (None, "nominal"):
         raise InputError(source, "corner", "no corner (a square-law technology has one parameter set)", corner)
-    schema = {k: v for k, v in _SQUARE_LAW_TOP.items() if v.dimension != "table"}
+    schema = {k: v for k, v in _SQUARE_LAW_TOP.items() if v.dimension != "table"} | _LAYOUT
     top = read_table(source, "", {k: v for k, v in raw.items() if k not in ("nmos", "pmos")},
                      schema | {"nmos": Field("str"), "pmos": Field("str")})
     _check_text(source, top)
@@ -104,7 +136,7 @@ def load(path: Path, corner: str | None = None) -> Technology:
         name=top["name"], description=top.get("description", ""), supply=top["supply"],
         temperature=top["temperature"] + 273.15, l_min=top["l_min"], l_max=top["l_max"],
         w_min=top["w_min"], cap_density=top["cap_density"], diffusion_length=top["diffusion_length"],
-        nmos=devices["nmos"], pmos=devices["pmos"],
+        nmos=devices["nmos"], pmos=devices["pmos"], layout=_layout(top),
     )
 
 
@@ -148,13 +180,14 @@ def _load_tables(path: Path, raw: dict, corner: str | None) -> Technology:
         missing = error.expected
         library, init = (), ()
         avt = {"nmos": float("nan"), "pmos": float("nan")}
-    return TableProcess(
+    tech = TableProcess(
         name=f"{top['name']}-{corner}", description=top.get("description", ""), supply=top["supply"],
         temperature=entry["temperature"] + 273.15, w_min=top["w_min"], cap_density=top["cap_density"],
         nmos=devices["nmos"], pmos=devices["pmos"], corner=corner, spice_library=library, spice_init=init,
         avt_n=avt["nmos"], avt_p=avt["pmos"], flicker_n=flicker["n"], flicker_p=flicker["p"],
-        models_missing=missing,
+        models_missing=missing, layout=_layout(top),
     )
+    return replace(tech, gm_id_bounds=_table_gm_id_bounds(tech))
 
 
 def file_hash(path: Path, corner: str | None = None) -> str:
