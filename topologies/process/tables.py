@@ -14,6 +14,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .. import kernels
+from . import table_kernels
 from .base import OperatingPoint, Polarity
 
 LOG_QUANTITIES = ("id", "gm", "gds", "gmb")
@@ -78,6 +80,19 @@ class DeviceTable:
         # Every quantity of an operating point stacked on a last axis: one gather serves them all.
         self.stacked_names = LOG_QUANTITIES + LINEAR_QUANTITIES
         self._stacked = np.ascontiguousarray(np.stack([self._by_curve[q] for q in self.stacked_names], axis=-1))
+        # The axes as the interpolation sees them, for the compiled kernels.
+        self._axes = (np.log(self.l), self.vds, _body_scale(self.vsb))
+
+    @staticmethod
+    def _queries(*arrays):
+        """Broadcast 1-D float queries, contiguous for the kernels."""
+        arrays = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in arrays))
+        return [np.ascontiguousarray(a) for a in arrays]
+
+    def _kernel_axes(self, l, vsb):
+        """Axes and the transformed L and VSB queries, transformed by numpy as the reference does."""
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return self._axes, np.log(l), _body_scale(vsb)
 
     def _prepare(self, l, vds, vsb):
         """Interpolation weights over (L, VDS, VSB), shared by every VGS probe of a query.
@@ -104,11 +119,19 @@ class DeviceTable:
 
     def curve(self, name: str, l, vds, vsb) -> np.ndarray:
         """The quantity along the whole VGS axis for each query: shape (N, len(vgs))."""
+        if kernels.enabled():
+            l, vds, vsb = self._queries(l, vds, vsb)
+            axes, ql, qb = self._kernel_axes(l, vsb)
+            return table_kernels.curve(self._by_curve[name], *axes, ql, vds, qb)
         l, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vds, vsb)))
         i, j, m, w = self._prepare(l, vds, vsb)
         return (self._by_curve[name][i, j, m] * w[:, :, None]).sum(axis=1)
 
     def at(self, name: str, l, vgs, vds, vsb) -> np.ndarray:
+        if kernels.enabled():
+            l, vgs, vds, vsb = self._queries(l, vgs, vds, vsb)
+            axes, ql, qb = self._kernel_axes(l, vsb)
+            return table_kernels.at(self._by_curve[name], *axes, self.vgs, ql, vgs, vds, qb)
         l, vgs, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vgs, vds, vsb)))
         ig, tg = _bracket(self.vgs, vgs)
         table = self._by_curve[name]
@@ -117,6 +140,11 @@ class DeviceTable:
 
     def at_all(self, l, vgs, vds, vsb) -> dict[str, np.ndarray]:
         """Every stored quantity at once (logs for the exponential ones), one interpolation."""
+        if kernels.enabled():
+            l, vgs, vds, vsb = self._queries(l, vgs, vds, vsb)
+            axes, ql, qb = self._kernel_axes(l, vsb)
+            values = table_kernels.at_all(self._stacked, *axes, self.vgs, ql, vgs, vds, qb)
+            return {name: values[:, k] for k, name in enumerate(self.stacked_names)}
         l, vgs, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vgs, vds, vsb)))
         ig, tg = _bracket(self.vgs, vgs)
         corners = self._prepare(l, vds, vsb)
@@ -133,6 +161,11 @@ class DeviceTable:
         Rising curves (log id) are searched as rising; falling ones (log gm/ID) as falling, the flat
         weak-inversion end counting as above any reachable target. NaN where the table never reaches it.
         """
+        if kernels.enabled():
+            l, target, vds, vsb = self._queries(l, target, vds, vsb)
+            axes, ql, qb = self._kernel_axes(l, vsb)
+            return table_kernels.solve_vgs(self._by_curve[name], *axes, self.vgs, ql, target, vds, qb,
+                                           -1.0 if from_top else 1.0)
         l, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vds, vsb)))
         target = np.broadcast_to(np.asarray(target, float), l.shape)
         table = self._by_curve[name]
