@@ -15,6 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import kernels, loop_kernels
 from .process.base import OperatingPoint
 
 GROUND_NAMES = ("0", "gnd", "vdd", "vss")  # supplies are AC ground
@@ -214,12 +215,16 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float 
         result = _crossings(circuit.dc_gain(output), lambda f: circuit.response(output, f), *args)
         return _blank(result, broken)
     with np.errstate(all="ignore"):
-        result = _crossings(modal.dc.real, modal.response, *args)
+        if kernels.enabled():
+            result, fast = _crossings_compiled(modal, *args)
+        else:
+            result = _crossings(modal.dc.real, modal.response, *args)
         # Pole s = -1/lam lies in the right half plane when Re(lam) < 0 (lam = 0: a pole at infinity).
         result.rhp_poles = (modal.lam.real < -1e-9 * np.abs(modal.lam)).sum(axis=1).astype(float)
         probe = np.where(result.gbw > 0, result.gbw, f_lo)[:, None]
         direct = circuit.response(output, probe)[:, 0]
-        fast = modal.response(probe)[:, 0]
+        if not kernels.enabled():
+            fast = modal.response(probe)[:, 0]
         bad = ~(np.abs(fast - direct) <= MODAL_TOLERANCE * np.abs(direct))
     if bad.any():
         sub = circuit.subset(np.flatnonzero(bad))
@@ -237,6 +242,19 @@ def _blank(result: LoopMetrics, rows: np.ndarray) -> LoopMetrics:
     return result
 
 
+def _grid(f_lo: float, f_hi: float, per_decade: int) -> np.ndarray:
+    return np.logspace(np.log10(f_lo), np.log10(f_hi), int(round(np.log10(f_hi / f_lo) * per_decade)) + 1)
+
+
+def _crossings_compiled(modal: Modal, f_lo: float, f_hi: float, per_decade: int, refine: int):
+    """_crossings on the modal form in one compiled pass; also the modal response at the check's probe."""
+    grid = _grid(f_lo, f_hi, per_decade)
+    gain = np.ascontiguousarray(modal.dc.real)
+    parts = (np.ascontiguousarray(a, complex) for a in (modal.r0, modal.r1, modal.lam))
+    gbw, pm, gm_db, probe = loop_kernels.crossings(gain, *parts, grid, np.log(grid), refine, f_lo)
+    return LoopMetrics(gain=gain, gbw=gbw, phase_margin=pm, gain_margin=gm_db), probe
+
+
 def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine: int) -> LoopMetrics:
     """DC gain, GBW, phase and gain margins of the amplifier used as a unity-gain follower.
 
@@ -248,7 +266,7 @@ def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine
     """
     designs = len(gain)
     sign = np.where(gain < 0, -1.0, 1.0)
-    grid = np.logspace(np.log10(f_lo), np.log10(f_hi), int(round(np.log10(f_hi / f_lo) * per_decade)) + 1)
+    grid = _grid(f_lo, f_hi, per_decade)
     h = response(grid) * sign[:, None]
     mag = np.log(np.abs(h))
     phase = np.unwrap(np.angle(h), axis=1)
