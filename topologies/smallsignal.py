@@ -41,6 +41,9 @@ class Circuit:
         size = len(self.nodes) + 1  # last row/column: the driven input
         self.G = np.zeros((designs, size, size))
         self.C = np.zeros((designs, size, size))
+        # Adjoint DC solutions by output node: noise and the output resistance ask for the same one.
+        # Stamping clears it.
+        self._adjoint: dict[str, np.ndarray] = {}
 
     def _idx(self, name: str) -> int | None:
         if name in self.drives:
@@ -51,6 +54,7 @@ class Circuit:
 
     def _stamp(self, matrix, rows: tuple, cols: tuple, value) -> None:
         """matrix[r, c] += sign_r * sign_c * value for the four corners of a two-terminal element."""
+        self._adjoint.clear()
         for r, sr in zip(rows, (1.0, -1.0)):
             ir = self._idx(r)
             if ir is None:
@@ -89,6 +93,7 @@ class Circuit:
     def _charge_matrix(self, nodes: dict[str, str], c: dict[str, np.ndarray]) -> None:
         """Stamp dQi/dVj for all four terminals; the bulk row and column follow from charge conservation
         (columns sum to zero) and from invariance to a common shift of all terminals (rows sum to zero)."""
+        self._adjoint.clear()
         full = dict(c)
         for i in "gds":
             full[i + "b"] = -(c[i + "g"] + c[i + "d"] + c[i + "s"])
@@ -123,21 +128,24 @@ class Circuit:
     def subset(self, rows: np.ndarray) -> "Circuit":
         """The same circuit for the designs at `rows` only."""
         part = Circuit(self.nodes, len(rows), self.drive, self.grounds)
-        part.G, part.C = self.G[rows].copy(), self.C[rows].copy()
+        part.G, part.C = self.G[rows], self.C[rows]      # fancy indexing already copies
         return part
 
     def transimpedance(self, output: str):
         """At DC: v(output) per ampere injected into each node, for every design, by one adjoint solve
         (G^T z = e_out). Returns a function of a node name; ground and driven nodes give 0."""
         n = len(self.nodes)
-        unit = np.zeros((self.designs, n))
-        unit[:, self._index[output]] = 1.0
-        g = self.G[:, :n, :n]
-        broken = ~np.isfinite(g).all(axis=(1, 2))
-        if broken.any():
-            g = np.where(broken[:, None, None], np.eye(n), g)
-        z = solve_batched(np.swapaxes(g, 1, 2), unit)
-        z[broken] = np.nan
+        z = self._adjoint.get(output)
+        if z is None:
+            unit = np.zeros((self.designs, n))
+            unit[:, self._index[output]] = 1.0
+            g = self.G[:, :n, :n]
+            broken = ~np.isfinite(g).all(axis=(1, 2))
+            if broken.any():
+                g = np.where(broken[:, None, None], np.eye(n), g)
+            z = solve_batched(np.swapaxes(g, 1, 2), unit)
+            z[broken] = np.nan
+            self._adjoint[output] = z
 
         def at(node: str) -> np.ndarray:
             i = self._idx(node)
