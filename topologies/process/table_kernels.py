@@ -4,7 +4,8 @@ Each kernel does the arithmetic of its numpy counterpart in the same order (the 
 numpy's pairwise and axis reductions), so both agree to rounding; the gain is that the corner weights are
 made once per query in registers and a VGS bisection touches 16 table entries a probe, with no
 (designs, 16) temporaries and no Python between probes. Axes arrive already transformed (log L, the
-body-effect scale of VSB) and queries likewise, so transcendental functions are numpy's in both paths.
+body-effect scale of VSB); queries arrive raw and are transformed here, where a logarithm may round
+its last bit differently from numpy's.
 """
 
 from __future__ import annotations
@@ -28,11 +29,11 @@ def _bracket(a, x):
 _bracket = compiled(_bracket)
 
 
-def _corners(log_l, vds_axis, body_axis, ql, qd, qb, w):
+def _corners(log_l, vds_axis, body_axis, l, qd, vsb, w):
     """Fill w (16) with the corner weights of one query; return the first L, VDS and VSB indices, or
     il = -1 outside the table (tables.DeviceTable._prepare)."""
-    il, tl = _bracket(log_l, ql)
-    ib, tb = _bracket(body_axis, qb)
+    il, tl = _bracket(log_l, np.log(l))
+    ib, tb = _bracket(body_axis, np.sqrt(0.8 + vsb))        # tables._body_scale
     iv, tv = _bracket(vds_axis, qd)
     if np.isnan(tl) or np.isnan(tb) or np.isnan(tv):
         return -1, 0, 0

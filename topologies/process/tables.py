@@ -85,14 +85,14 @@ class DeviceTable:
 
     @staticmethod
     def _queries(*arrays):
-        """Broadcast 1-D float queries, contiguous for the kernels."""
-        arrays = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in arrays))
+        """1-D float queries of one length, contiguous for the kernels; already such arrays pass through
+        untouched (small populations make many calls, so this path stays cheap)."""
+        arrays = [np.asarray(a, float) for a in arrays]
+        n = arrays[0].shape[0] if arrays[0].ndim == 1 else -1
+        if all(a.ndim == 1 and a.shape[0] == n and a.flags.c_contiguous for a in arrays):
+            return arrays
+        arrays = np.broadcast_arrays(*(np.atleast_1d(a) for a in arrays))
         return [np.ascontiguousarray(a) for a in arrays]
-
-    def _kernel_axes(self, l, vsb):
-        """Axes and the transformed L and VSB queries, transformed by numpy as the reference does."""
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return self._axes, np.log(l), _body_scale(vsb)
 
     def _prepare(self, l, vds, vsb):
         """Interpolation weights over (L, VDS, VSB), shared by every VGS probe of a query.
@@ -121,8 +121,7 @@ class DeviceTable:
         """The quantity along the whole VGS axis for each query: shape (N, len(vgs))."""
         if kernels.enabled():
             l, vds, vsb = self._queries(l, vds, vsb)
-            axes, ql, qb = self._kernel_axes(l, vsb)
-            return table_kernels.curve(self._by_curve[name], *axes, ql, vds, qb)
+            return table_kernels.curve(self._by_curve[name], *self._axes, l, vds, vsb)
         l, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vds, vsb)))
         i, j, m, w = self._prepare(l, vds, vsb)
         return (self._by_curve[name][i, j, m] * w[:, :, None]).sum(axis=1)
@@ -130,8 +129,7 @@ class DeviceTable:
     def at(self, name: str, l, vgs, vds, vsb) -> np.ndarray:
         if kernels.enabled():
             l, vgs, vds, vsb = self._queries(l, vgs, vds, vsb)
-            axes, ql, qb = self._kernel_axes(l, vsb)
-            return table_kernels.at(self._by_curve[name], *axes, self.vgs, ql, vgs, vds, qb)
+            return table_kernels.at(self._by_curve[name], *self._axes, self.vgs, l, vgs, vds, vsb)
         l, vgs, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vgs, vds, vsb)))
         ig, tg = _bracket(self.vgs, vgs)
         table = self._by_curve[name]
@@ -142,8 +140,7 @@ class DeviceTable:
         """Every stored quantity at once (logs for the exponential ones), one interpolation."""
         if kernels.enabled():
             l, vgs, vds, vsb = self._queries(l, vgs, vds, vsb)
-            axes, ql, qb = self._kernel_axes(l, vsb)
-            values = table_kernels.at_all(self._stacked, *axes, self.vgs, ql, vgs, vds, qb)
+            values = table_kernels.at_all(self._stacked, *self._axes, self.vgs, l, vgs, vds, vsb)
             return {name: values[:, k] for k, name in enumerate(self.stacked_names)}
         l, vgs, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vgs, vds, vsb)))
         ig, tg = _bracket(self.vgs, vgs)
@@ -163,8 +160,7 @@ class DeviceTable:
         """
         if kernels.enabled():
             l, target, vds, vsb = self._queries(l, target, vds, vsb)
-            axes, ql, qb = self._kernel_axes(l, vsb)
-            return table_kernels.solve_vgs(self._by_curve[name], *axes, self.vgs, ql, target, vds, qb,
+            return table_kernels.solve_vgs(self._by_curve[name], *self._axes, self.vgs, l, target, vds, vsb,
                                            -1.0 if from_top else 1.0)
         l, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vds, vsb)))
         target = np.broadcast_to(np.asarray(target, float), l.shape)
