@@ -204,7 +204,8 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float 
 
     Fast path: the modal form, checked design by design against one direct solve at the unity-gain
     frequency; designs that fail the check (or a population whose matrices LAPACK cannot factor) take
-    the direct path, a complex solve at every grid frequency.
+    the direct path, a complex solve at every grid frequency. With numba the grid pass and the check's
+    solve run compiled (loop_kernels); the numpy code stays the reference they are tested against.
     """
     args = (f_lo, f_hi, per_decade, refine)
     # Designs with non-finite elements (outside a table, dead devices) get a harmless stand-in circuit so
@@ -222,16 +223,17 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float 
     if modal is None:
         result = _crossings(circuit.dc_gain(output), lambda f: circuit.response(output, f), *args)
         return _blank(result, broken)
+    compiled = kernels.enabled()
     with np.errstate(all="ignore"):
-        if kernels.enabled():
+        if compiled:
             result, fast = _crossings_compiled(modal, *args)
         else:
             result = _crossings(modal.dc.real, modal.response, *args)
         # Pole s = -1/lam lies in the right half plane when Re(lam) < 0 (lam = 0: a pole at infinity).
         result.rhp_poles = (modal.lam.real < -1e-9 * np.abs(modal.lam)).sum(axis=1).astype(float)
         probe = np.where(result.gbw > 0, result.gbw, f_lo)[:, None]
-        if kernels.enabled():
-            # Rounding differs from LAPACK's only far below the tolerance the comparison is held to.
+        if compiled:
+            # Its rounding differs from LAPACK's far below MODAL_TOLERANCE, so the check picks the same designs.
             direct = loop_kernels.direct(circuit.G, circuit.C, circuit.nodes.index(output), probe[:, 0])
         else:
             direct = circuit.response(output, probe)[:, 0]
