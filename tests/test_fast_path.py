@@ -53,8 +53,9 @@ def _synthetic_modal(designs, modes, seed):
     modal = object.__new__(Modal)
     tau = 10.0 ** rng.uniform(-10, 2, (designs, modes))
     q = 10.0 ** rng.uniform(-1, 1.5, (designs, modes))
-    modal.lam = tau * (rng.choice([1.0, 1.0, 1.0, -0.05], (designs, modes)) + 1j / q * rng.choice([-1, 1], (designs, modes)))
-    modal.r0 = (10.0 ** rng.uniform(-1, 4, (designs, modes))) * np.exp(1j * rng.uniform(-np.pi, np.pi, (designs, modes)))
+    shape = (designs, modes)
+    modal.lam = tau * (rng.choice([1.0, 1.0, 1.0, -0.05], shape) + 1j / q * rng.choice([-1, 1], shape))
+    modal.r0 = 10.0 ** rng.uniform(-1, 4, shape) * np.exp(1j * rng.uniform(-np.pi, np.pi, shape))
     modal.r1 = np.where(rng.random((designs, modes)) < 0.2, modal.r0 * tau * 0.1, 0.0)
     modal.dc = modal.r0.sum(axis=1) * rng.choice([-1.0, 1.0], designs)
     return modal
