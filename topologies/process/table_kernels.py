@@ -2,8 +2,8 @@
 
 Each kernel does the arithmetic of its numpy counterpart in the same order (the 16-corner sums follow
 numpy's pairwise and axis reductions), so both agree to rounding; the gain is that the corner weights are
-made once per query in registers and a VGS bisection touches 16 table entries a probe, with no
-(designs, 16) temporaries and no Python between probes. Axes arrive already transformed (log L, the
+made once per query and a VGS bisection touches 16 table entries a probe, with no (designs, 16)
+temporaries and no Python between probes. Axes arrive already transformed (log L, the
 body-effect scale of VSB); queries arrive raw and are transformed here, where a logarithm may round
 its last bit differently from numpy's.
 """
@@ -29,12 +29,12 @@ def _bracket(a, x):
 _bracket = compiled(_bracket)
 
 
-def _corners(log_l, vds_axis, body_axis, l, qd, vsb, w):
+def _corners(log_l, vds_axis, body_axis, l, vds, vsb, w):
     """Fill w (16) with the corner weights of one query; return the first L, VDS and VSB indices, or
     il = -1 outside the table (tables.DeviceTable._prepare)."""
     il, tl = _bracket(log_l, np.log(l))
     ib, tb = _bracket(body_axis, np.sqrt(0.8 + vsb))        # tables._body_scale
-    iv, tv = _bracket(vds_axis, qd)
+    iv, tv = _bracket(vds_axis, vds)
     if np.isnan(tl) or np.isnan(tb) or np.isnan(tv):
         return -1, 0, 0
     start = min(max(iv - 1, 0), vds_axis.shape[0] - 4)
@@ -42,7 +42,7 @@ def _corners(log_l, vds_axis, body_axis, l, qd, vsb, w):
         lagrange = 1.0      # scalar products in the reference's order, no per-query allocation
         for m in range(4):
             if m != gd:
-                lagrange *= (qd - vds_axis[start + m]) / (vds_axis[start + gd] - vds_axis[start + m])
+                lagrange *= (vds - vds_axis[start + m]) / (vds_axis[start + gd] - vds_axis[start + m])
         for gb in range(2):
             wb = 1 - tb if gb == 0 else tb
             w[gd * 2 + gb] = (1 - tl) * lagrange * wb
@@ -63,12 +63,12 @@ def _probe(table, il, iv, ib, w, k):
 _probe = compiled(_probe)
 
 
-def at(table, log_l, vds_axis, body_axis, vgs_axis, ql, qg, qd, qb):
-    out = np.empty(ql.shape[0])
+def at(table, log_l, vds_axis, body_axis, vgs_axis, l, vgs, vds, vsb):
+    out = np.empty(l.shape[0])
     w = np.empty(16)
-    for n in range(ql.shape[0]):
-        il, iv, ib = _corners(log_l, vds_axis, body_axis, ql[n], qd[n], qb[n], w)
-        ig, tg = _bracket(vgs_axis, qg[n])
+    for n in range(l.shape[0]):
+        il, iv, ib = _corners(log_l, vds_axis, body_axis, l[n], vds[n], vsb[n], w)
+        ig, tg = _bracket(vgs_axis, vgs[n])
         if il < 0 or np.isnan(tg):
             out[n] = np.nan
             continue
@@ -79,15 +79,15 @@ def at(table, log_l, vds_axis, body_axis, vgs_axis, ql, qg, qd, qb):
 at = compiled(at)
 
 
-def at_all(stacked, log_l, vds_axis, body_axis, vgs_axis, ql, qg, qd, qb):
+def at_all(stacked, log_l, vds_axis, body_axis, vgs_axis, l, vgs, vds, vsb):
     """Every quantity of `stacked` (L, VDS, VSB, VGS, quantity): rows are queries."""
     count = stacked.shape[4]
-    out = np.empty((ql.shape[0], count))
+    out = np.empty((l.shape[0], count))
     w = np.empty(16)
     low, high = np.empty(count), np.empty(count)
-    for n in range(ql.shape[0]):
-        il, iv, ib = _corners(log_l, vds_axis, body_axis, ql[n], qd[n], qb[n], w)
-        ig, tg = _bracket(vgs_axis, qg[n])
+    for n in range(l.shape[0]):
+        il, iv, ib = _corners(log_l, vds_axis, body_axis, l[n], vds[n], vsb[n], w)
+        ig, tg = _bracket(vgs_axis, vgs[n])
         if il < 0 or np.isnan(tg):
             out[n, :] = np.nan
             continue
@@ -108,13 +108,13 @@ def at_all(stacked, log_l, vds_axis, body_axis, vgs_axis, ql, qg, qd, qb):
 at_all = compiled(at_all)
 
 
-def curve(table, log_l, vds_axis, body_axis, ql, qd, qb):
+def curve(table, log_l, vds_axis, body_axis, l, vds, vsb):
     """The quantity along the whole VGS axis: rows are queries."""
     points = table.shape[3]
-    out = np.empty((ql.shape[0], points))
+    out = np.empty((l.shape[0], points))
     w = np.empty(16)
-    for n in range(ql.shape[0]):
-        il, iv, ib = _corners(log_l, vds_axis, body_axis, ql[n], qd[n], qb[n], w)
+    for n in range(l.shape[0]):
+        il, iv, ib = _corners(log_l, vds_axis, body_axis, l[n], vds[n], vsb[n], w)
         if il < 0:
             out[n, :] = np.nan
             continue
@@ -129,14 +129,14 @@ def curve(table, log_l, vds_axis, body_axis, ql, qd, qb):
 curve = compiled(curve)
 
 
-def solve_vgs(table, log_l, vds_axis, body_axis, vgs_axis, ql, target, qd, qb, sign):
+def solve_vgs(table, log_l, vds_axis, body_axis, vgs_axis, l, target, vds, vsb, sign):
     """VGS where sign * quantity rises through sign * target: bisection over the VGS grid, then linear
     interpolation in the last interval (tables.DeviceTable.solve_vgs)."""
-    out = np.empty(ql.shape[0])
+    out = np.empty(l.shape[0])
     w = np.empty(16)
     top = vgs_axis.shape[0] - 1
-    for n in range(ql.shape[0]):
-        il, iv, ib = _corners(log_l, vds_axis, body_axis, ql[n], qd[n], qb[n], w)
+    for n in range(l.shape[0]):
+        il, iv, ib = _corners(log_l, vds_axis, body_axis, l[n], vds[n], vsb[n], w)
         goal = sign * target[n]
         if il < 0 or not (sign * _probe(table, il, iv, ib, w, 0) < goal
                           and sign * _probe(table, il, iv, ib, w, top) >= goal):
