@@ -15,6 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import kernels, loop_kernels
 from .process.base import OperatingPoint
 
 GROUND_NAMES = ("0", "gnd", "vdd", "vss")  # supplies are AC ground
@@ -40,6 +41,9 @@ class Circuit:
         size = len(self.nodes) + 1  # last row/column: the driven input
         self.G = np.zeros((designs, size, size))
         self.C = np.zeros((designs, size, size))
+        # Adjoint DC solutions by output node: noise and the output resistance ask for the same one.
+        # Stamping clears it.
+        self._adjoint: dict[str, np.ndarray] = {}
 
     def _idx(self, name: str) -> int | None:
         if name in self.drives:
@@ -50,6 +54,7 @@ class Circuit:
 
     def _stamp(self, matrix, rows: tuple, cols: tuple, value) -> None:
         """matrix[r, c] += sign_r * sign_c * value for the four corners of a two-terminal element."""
+        self._adjoint.clear()
         for r, sr in zip(rows, (1.0, -1.0)):
             ir = self._idx(r)
             if ir is None:
@@ -88,6 +93,7 @@ class Circuit:
     def _charge_matrix(self, nodes: dict[str, str], c: dict[str, np.ndarray]) -> None:
         """Stamp dQi/dVj for all four terminals; the bulk row and column follow from charge conservation
         (columns sum to zero) and from invariance to a common shift of all terminals (rows sum to zero)."""
+        self._adjoint.clear()
         full = dict(c)
         for i in "gds":
             full[i + "b"] = -(c[i + "g"] + c[i + "d"] + c[i + "s"])
@@ -122,21 +128,24 @@ class Circuit:
     def subset(self, rows: np.ndarray) -> "Circuit":
         """The same circuit for the designs at `rows` only."""
         part = Circuit(self.nodes, len(rows), self.drive, self.grounds)
-        part.G, part.C = self.G[rows].copy(), self.C[rows].copy()
+        part.G, part.C = self.G[rows], self.C[rows]      # fancy indexing already copies
         return part
 
     def transimpedance(self, output: str):
         """At DC: v(output) per ampere injected into each node, for every design, by one adjoint solve
         (G^T z = e_out). Returns a function of a node name; ground and driven nodes give 0."""
         n = len(self.nodes)
-        unit = np.zeros((self.designs, n))
-        unit[:, self._index[output]] = 1.0
-        g = self.G[:, :n, :n]
-        broken = ~np.isfinite(g).all(axis=(1, 2))
-        if broken.any():
-            g = np.where(broken[:, None, None], np.eye(n), g)
-        z = solve_batched(np.swapaxes(g, 1, 2), unit)
-        z[broken] = np.nan
+        z = self._adjoint.get(output)
+        if z is None:
+            unit = np.zeros((self.designs, n))
+            unit[:, self._index[output]] = 1.0
+            g = self.G[:, :n, :n]
+            broken = ~np.isfinite(g).all(axis=(1, 2))
+            if broken.any():
+                g = np.where(broken[:, None, None], np.eye(n), g)
+            z = solve_batched(np.swapaxes(g, 1, 2), unit)
+            z[broken] = np.nan
+            self._adjoint[output] = z
 
         def at(node: str) -> np.ndarray:
             i = self._idx(node)
@@ -195,7 +204,8 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float 
 
     Fast path: the modal form, checked design by design against one direct solve at the unity-gain
     frequency; designs that fail the check (or a population whose matrices LAPACK cannot factor) take
-    the direct path, a complex solve at every grid frequency.
+    the direct path, a complex solve at every grid frequency. With numba the grid pass and the check's
+    solve run compiled (loop_kernels); the numpy code stays the reference they are tested against.
     """
     args = (f_lo, f_hi, per_decade, refine)
     # Designs with non-finite elements (outside a table, dead devices) get a harmless stand-in circuit so
@@ -213,13 +223,21 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float 
     if modal is None:
         result = _crossings(circuit.dc_gain(output), lambda f: circuit.response(output, f), *args)
         return _blank(result, broken)
+    compiled = kernels.enabled()
     with np.errstate(all="ignore"):
-        result = _crossings(modal.dc.real, modal.response, *args)
+        if compiled:
+            result, fast = _crossings_compiled(modal, *args)
+        else:
+            result = _crossings(modal.dc.real, modal.response, *args)
         # Pole s = -1/lam lies in the right half plane when Re(lam) < 0 (lam = 0: a pole at infinity).
         result.rhp_poles = (modal.lam.real < -1e-9 * np.abs(modal.lam)).sum(axis=1).astype(float)
         probe = np.where(result.gbw > 0, result.gbw, f_lo)[:, None]
-        direct = circuit.response(output, probe)[:, 0]
-        fast = modal.response(probe)[:, 0]
+        if compiled:
+            # Its rounding differs from LAPACK's far below MODAL_TOLERANCE, so the check picks the same designs.
+            direct = loop_kernels.direct(circuit.G, circuit.C, circuit.nodes.index(output), probe[:, 0])
+        else:
+            direct = circuit.response(output, probe)[:, 0]
+            fast = modal.response(probe)[:, 0]
         bad = ~(np.abs(fast - direct) <= MODAL_TOLERANCE * np.abs(direct))
     if bad.any():
         sub = circuit.subset(np.flatnonzero(bad))
@@ -237,6 +255,19 @@ def _blank(result: LoopMetrics, rows: np.ndarray) -> LoopMetrics:
     return result
 
 
+def _grid(f_lo: float, f_hi: float, per_decade: int) -> np.ndarray:
+    return np.logspace(np.log10(f_lo), np.log10(f_hi), int(round(np.log10(f_hi / f_lo) * per_decade)) + 1)
+
+
+def _crossings_compiled(modal: Modal, f_lo: float, f_hi: float, per_decade: int, refine: int):
+    """_crossings on the modal form in one compiled pass; also the modal response at the check's probe."""
+    grid = _grid(f_lo, f_hi, per_decade)
+    gain = np.ascontiguousarray(modal.dc.real)
+    parts = (np.ascontiguousarray(a, complex) for a in (modal.r0, modal.r1, modal.lam))
+    gbw, pm, gm_db, probe = loop_kernels.crossings(gain, *parts, grid, np.log(grid), refine, f_lo)
+    return LoopMetrics(gain=gain, gbw=gbw, phase_margin=pm, gain_margin=gm_db), probe
+
+
 def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine: int) -> LoopMetrics:
     """DC gain, GBW, phase and gain margins of the amplifier used as a unity-gain follower.
 
@@ -248,7 +279,7 @@ def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine
     """
     designs = len(gain)
     sign = np.where(gain < 0, -1.0, 1.0)
-    grid = np.logspace(np.log10(f_lo), np.log10(f_hi), int(round(np.log10(f_hi / f_lo) * per_decade)) + 1)
+    grid = _grid(f_lo, f_hi, per_decade)
     h = response(grid) * sign[:, None]
     mag = np.log(np.abs(h))
     phase = np.unwrap(np.angle(h), axis=1)

@@ -14,6 +14,8 @@ from pathlib import Path
 
 import numpy as np
 
+from .. import kernels
+from . import table_kernels
 from .base import Layout, OperatingPoint, Polarity
 
 LOG_QUANTITIES = ("id", "gm", "gds", "gmb")
@@ -78,6 +80,19 @@ class DeviceTable:
         # Every quantity of an operating point stacked on a last axis: one gather serves them all.
         self.stacked_names = LOG_QUANTITIES + LINEAR_QUANTITIES
         self._stacked = np.ascontiguousarray(np.stack([self._by_curve[q] for q in self.stacked_names], axis=-1))
+        # The axes as the interpolation sees them, for the compiled kernels.
+        self._axes = (np.log(self.l), self.vds, _body_scale(self.vsb))
+
+    @staticmethod
+    def _queries(*arrays):
+        """1-D float queries of one length, contiguous for the kernels; already such arrays pass through
+        untouched (small populations make many calls, so this path stays cheap)."""
+        arrays = [np.asarray(a, float) for a in arrays]
+        n = arrays[0].shape[0] if arrays[0].ndim == 1 else -1
+        if all(a.ndim == 1 and a.shape[0] == n and a.flags.c_contiguous for a in arrays):
+            return arrays
+        arrays = np.broadcast_arrays(*(np.atleast_1d(a) for a in arrays))
+        return [np.ascontiguousarray(a) for a in arrays]
 
     def _prepare(self, l, vds, vsb):
         """Interpolation weights over (L, VDS, VSB), shared by every VGS probe of a query.
@@ -104,11 +119,17 @@ class DeviceTable:
 
     def curve(self, name: str, l, vds, vsb) -> np.ndarray:
         """The quantity along the whole VGS axis for each query: shape (N, len(vgs))."""
+        if kernels.enabled():
+            l, vds, vsb = self._queries(l, vds, vsb)
+            return table_kernels.curve(self._by_curve[name], *self._axes, l, vds, vsb)
         l, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vds, vsb)))
         i, j, m, w = self._prepare(l, vds, vsb)
         return (self._by_curve[name][i, j, m] * w[:, :, None]).sum(axis=1)
 
     def at(self, name: str, l, vgs, vds, vsb) -> np.ndarray:
+        if kernels.enabled():
+            l, vgs, vds, vsb = self._queries(l, vgs, vds, vsb)
+            return table_kernels.at(self._by_curve[name], *self._axes, self.vgs, l, vgs, vds, vsb)
         l, vgs, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vgs, vds, vsb)))
         ig, tg = _bracket(self.vgs, vgs)
         table = self._by_curve[name]
@@ -117,6 +138,10 @@ class DeviceTable:
 
     def at_all(self, l, vgs, vds, vsb) -> dict[str, np.ndarray]:
         """Every stored quantity at once (logs for the exponential ones), one interpolation."""
+        if kernels.enabled():
+            l, vgs, vds, vsb = self._queries(l, vgs, vds, vsb)
+            values = table_kernels.at_all(self._stacked, *self._axes, self.vgs, l, vgs, vds, vsb)
+            return {name: values[:, k] for k, name in enumerate(self.stacked_names)}
         l, vgs, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vgs, vds, vsb)))
         ig, tg = _bracket(self.vgs, vgs)
         corners = self._prepare(l, vds, vsb)
@@ -133,6 +158,10 @@ class DeviceTable:
         Rising curves (log id) are searched as rising; falling ones (log gm/ID) as falling, the flat
         weak-inversion end counting as above any reachable target. NaN where the table never reaches it.
         """
+        if kernels.enabled():
+            l, target, vds, vsb = self._queries(l, target, vds, vsb)
+            return table_kernels.solve_vgs(self._by_curve[name], *self._axes, self.vgs, l, target, vds, vsb,
+                                           -1.0 if from_top else 1.0)
         l, vds, vsb = np.broadcast_arrays(*(np.atleast_1d(np.asarray(a, float)) for a in (l, vds, vsb)))
         target = np.broadcast_to(np.asarray(target, float), l.shape)
         table = self._by_curve[name]

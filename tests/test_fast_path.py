@@ -1,0 +1,100 @@
+"""The compiled kernels against the numpy/LAPACK reference path they stand in for.
+
+Outside reference: the numpy code kept beside each kernel (topologies/smallsignal.py `_crossings` on
+`Modal.response`, topologies/process/tables.py interpolation and bisection), run through
+`kernels.reference_path()`. Both paths share the LAPACK eigendecomposition and solves, so they may differ
+only by rounding: 1e-9 relative on every reported metric, and the same NaN/inf pattern.
+"""
+
+import numpy as np
+import pytest
+
+from ampfront import topologies
+from ampfront.topologies import kernels
+from ampfront.topologies.evaluate import evaluate
+from ampfront.topologies.process.techfile import load, shipped
+from ampfront.topologies.smallsignal import Modal, _crossings, _crossings_compiled
+
+from .helpers import DEMO_CONDITIONS, random_designs
+
+pytestmark = pytest.mark.skipif(not kernels.enabled(), reason="numba not importable: only the reference runs")
+
+METRICS = ("gain_db", "gbw_hz", "phase_margin_deg", "gain_margin_db", "rhp_poles", "power_w", "noise_rms_v",
+           "noise_thermal_v_rthz", "noise_flicker_1hz_v_rthz", "noise_corner_hz", "cmrr_db", "psrr_db",
+           "output_resistance_ohm", "slew_v_per_us", "swing_v", "sat_min_v", "dc_residual")
+
+
+def _same(fast, ref, rtol):
+    finite = np.isfinite(ref)
+    np.testing.assert_array_equal(fast[~finite], ref[~finite])      # NaN and signed inf where the reference has them
+    np.testing.assert_allclose(fast[finite], ref[finite], rtol=rtol, atol=0)
+
+
+@pytest.mark.parametrize("tech_name", ["generic180", "sky130"])
+@pytest.mark.parametrize("name", sorted(topologies.available()))
+def test_metrics_match_the_reference(name, tech_name):
+    tech = load(shipped()[tech_name])
+    topology = topologies.available()[name]
+    x = random_designs(topology, tech, 400, seed=11)
+    fast, _ = evaluate(topology, x, tech, DEMO_CONDITIONS)
+    with kernels.reference_path():
+        ref, _ = evaluate(topology, x, tech, DEMO_CONDITIONS)
+    # The comparison must cover designs with a real loop, not only NaN rows.
+    assert np.isfinite(ref["phase_margin_deg"]).sum() >= 20
+    for key in METRICS:
+        if key in ref:
+            _same(fast[key], ref[key], 1e-9)
+
+
+def _synthetic_modal(designs, modes, seed):
+    """Modal data of random stable and unstable pole sets, dense enough in frequency that the phase turns
+    several times and the gain crosses unity more than once in some designs."""
+    rng = np.random.default_rng(seed)
+    modal = object.__new__(Modal)
+    tau = 10.0 ** rng.uniform(-10, 2, (designs, modes))
+    q = 10.0 ** rng.uniform(-1, 1.5, (designs, modes))
+    shape = (designs, modes)
+    modal.lam = tau * (rng.choice([1.0, 1.0, 1.0, -0.05], shape) + 1j / q * rng.choice([-1, 1], shape))
+    modal.r0 = 10.0 ** rng.uniform(-1, 4, shape) * np.exp(1j * rng.uniform(-np.pi, np.pi, shape))
+    modal.r1 = np.where(rng.random((designs, modes)) < 0.2, modal.r0 * tau * 0.1, 0.0)
+    modal.dc = modal.r0.sum(axis=1) * rng.choice([-1.0, 1.0], designs)
+    return modal
+
+
+@pytest.mark.parametrize("modes", [1, 3, 8])
+def test_crossings_match_the_reference_on_hard_responses(modes):
+    modal = _synthetic_modal(3000, modes, seed=modes)
+    args = (1e-3, 1e11, 8, 6)
+    with np.errstate(all="ignore"):
+        fast, probe = _crossings_compiled(modal, *args)
+        ref = _crossings(modal.dc.real, modal.response, *args)
+        ref_probe = modal.response(np.where(ref.gbw > 0, ref.gbw, args[0])[:, None])[:, 0]
+    assert np.isfinite(ref.gain_margin).sum() > 100 and np.isfinite(ref.phase_margin).sum() > 100
+    for field in ("gbw", "phase_margin", "gain_margin"):
+        _same(getattr(fast, field), getattr(ref, field), 1e-9)
+    np.testing.assert_allclose(probe, ref_probe, rtol=1e-12)
+
+
+@pytest.mark.parametrize("polarity", ["n", "p"])
+def test_table_kernels_match_the_reference(polarity):
+    table = load(shipped()["sky130"])._t(polarity)
+    rng = np.random.default_rng(5)
+    n = 4000
+    # Queries reach past every axis, so off-table NaNs are compared too.
+    l = np.exp(rng.uniform(np.log(table.l[0]) - 0.1, np.log(table.l[-1]) + 0.1, n))
+    vgs, vds, vsb = rng.uniform(0.0, 2.0, n), rng.uniform(-0.05, 1.9, n), rng.uniform(-0.05, 1.0, n)
+    calls = {
+        "at": lambda: table.at("gds", l, vgs, vds, vsb),
+        "at_all": lambda: np.stack(list(table.at_all(l, vgs, vds, vsb).values())),
+        "curve": lambda: table.curve("gm", l, vds, vsb),
+        "solve id": lambda: table.solve_vgs("id", l, rng.uniform(-25, -5, n), vds, vsb),
+        "solve gm/ID": lambda: table.solve_vgs("gmid", l, np.log(rng.uniform(2, 30, n)), vds, vsb, from_top=True),
+    }
+    for name, call in calls.items():
+        state = rng.bit_generator.state
+        fast = call()
+        rng.bit_generator.state = state
+        with kernels.reference_path():
+            ref = call()
+        assert 0.3 < np.isfinite(ref).mean() < 0.95, name
+        _same(fast, ref, 1e-13)
