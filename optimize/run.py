@@ -37,6 +37,7 @@ class RunSummary:
     wall_s: float
     infeasible: dict[str, Infeasible] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
+    piles: list = field(default_factory=list)     # search.bounds.Pile
 
     @property
     def feasible(self) -> bool:
@@ -97,6 +98,8 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     summary = RunSummary(final, tech.name, study.seed, evaluations, len(table) if fronts else 0, 0.0, misses)
     if getattr(tech, "models_missing", None):
         summary.warnings.append(f"testbenches cannot run yet: {tech.models_missing}")
+    summary.piles = [p for f in fronts for p in f.piles]
+    summary.warnings += [p.describe() for p in summary.piles]
     with staged_directory(final) as stage:
         table.to_csv(stage / "front.csv", index=False, float_format="%.9g")
         summary.wall_s = time.perf_counter() - started
@@ -128,5 +131,7 @@ def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:
         "evaluations": summary.evaluations, "wall_time_s": round(wall, 3),
         "front_designs": summary.front_designs,
         "infeasible_topologies": {n: o.describe() for n, o in summary.infeasible.items()},
+        # Variables at whose search bound most of a front sits: the box, not physics, limits it there.
+        "at_search_bounds": [p.record() for p in summary.piles],
         "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
     }

@@ -184,8 +184,8 @@ class Bound:
     doc: str = ""
     # Further metrics the same bound holds: the phase margin of the open loop as the testbench measures it
     # and of the loop as the feedback closes it (they part where the tail node's capacitance separates the
-    # two inputs' paths) must both meet it. Their constraints are named <key>_<metric>.
-    also: tuple[str, ...] = ()
+    # two inputs' paths) must both meet it. Each is (suffix, metric); its constraint is named <key>_<suffix>.
+    also: tuple[tuple[str, str], ...] = ()
     # Held even when the study does not set it: what any op-amp block a designer would draw stays within
     # (0.1 mm² of area, 2 mm of width for one device group; common practice, README "Buildability").
     default: float | None = None
@@ -195,7 +195,7 @@ BOUNDS: dict[str, Bound] = {b.key: b for b in (
     Bound("min_gain", "gain_db", "min", "dB", "minimum DC gain", 1.0),
     Bound("min_gbw", "gbw_hz", "min", "Hz", "minimum GBW"),
     Bound("min_phase_margin", "phase_margin_deg", "min", "deg", "minimum phase margin", 1.0,
-          also=("loop_phase_margin_deg",)),
+          also=(("loop", "loop_phase_margin_deg"),)),
     Bound("min_gain_margin", "gain_margin_db", "min", "dB", "minimum gain margin", 1.0),
     Bound("min_slew_rate", "slew_v_per_s", "min", "V/s", "minimum slew rate"),
     Bound("min_output_swing", "swing_v", "min", "V", "minimum output swing (peak to peak)"),

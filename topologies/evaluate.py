@@ -83,7 +83,8 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         common, supply = small_signal(build, cond, "common_mode"), small_signal(build, cond, "supply")
         a_cm, a_dd = common.dc_gain("out"), supply.dc_gain("out")
         unsolved = circuit.quarantined | unloaded.quarantined | common.quarantined | supply.quarantined
-        stability = stability_from_circuits(circuit, common, cond.beta, step=step)
+        eigen = (loop.modal.lam, loop.modal.vectors) if loop.modal is not None else None
+        stability = stability_from_circuits(circuit, common, cond.beta, step=step, eigen=eigen)
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     designs = len(build.supply_current)

@@ -23,7 +23,9 @@ class FoldedCascode:
 
     def variables(self, tech: Technology) -> tuple[Variable, ...]:
         return pair_variables(tech) + (
-            Variable("fold_ratio", 0.3, 2.0, "1", doc="cascode-branch current / half the tail current"),
+            # Down to a twentieth: a micropower folded cascode starves its output branch to save current
+            # (0.3 was a box the fronts piled against).
+            Variable("fold_ratio", 0.05, 2.0, "1", log=True, doc="cascode-branch current / half the tail current"),
             gm_id_variable("gmid_src", tech, "gm/ID of the pMOS folding sources"),
             length_variable("l_src", tech, "pMOS folding source length"),
         ) + cascode_variables(tech, "VDS above Vdsat given to the sources and mirror bottom")

@@ -62,6 +62,27 @@ def _modal_grid(r0, r1, lam, d, w, res, ims):
 _modal_grid = compiled(_modal_grid)
 
 
+def _modal_grid_all(r0, r1, lam, freqs, res, ims):
+    w = TWO_PI * freqs
+    row_re, row_im = np.empty(w.shape[0]), np.empty(w.shape[0])
+    for d in range(lam.shape[0]):
+        _modal_grid(r0, r1, lam, d, w, row_re, row_im)
+        res[d, :] = row_re
+        ims[d, :] = row_im
+
+
+_modal_grid_all = compiled(_modal_grid_all)
+
+
+def modal_grid_all(r0, r1, lam, freqs) -> np.ndarray:
+    """Modal responses of every design on one frequency grid, (designs, F) complex."""
+    res = np.empty((lam.shape[0], freqs.shape[0]))
+    ims = np.empty_like(res)
+    _modal_grid_all(np.ascontiguousarray(r0), np.ascontiguousarray(r1), np.ascontiguousarray(lam),
+                    np.ascontiguousarray(freqs, dtype=np.float64), res, ims)
+    return res + 1j * ims
+
+
 def _winding(re0, im0, re1, im1):
     """Turns np.unwrap adds between two successive grid points: +1 when the short arc from the first to the
     second crosses the negative real axis counterclockwise (principal phase jumps from +pi to -pi), -1

@@ -164,6 +164,7 @@ class LoopMetrics:
     phase_margin: np.ndarray      # deg (-inf where there is no unity-gain crossing)
     gain_margin: np.ndarray       # dB (inf where the phase never reaches -180 deg)
     rhp_poles: np.ndarray | None = None   # open-loop poles in the right half plane (an unstable amplifier)
+    modal: "Modal | None" = None          # the modal form the figures came from, for reuse
 
 
 class Modal:
@@ -182,6 +183,7 @@ class Modal:
                              axis=2)
         sol = np.linalg.solve(g, rhs)
         self.lam, vectors = np.linalg.eig(sol[:, :, :n])
+        self.vectors = vectors   # kept: another input column of the same circuit needs only new residues
         coef = np.linalg.solve(vectors, sol[:, :, n:].astype(complex))
         row = vectors[:, circuit.nodes.index(output), :]
         self.r0, self.r1 = row * coef[:, :, 0], row * coef[:, :, 1]
@@ -231,6 +233,7 @@ def loop_metrics(circuit: Circuit, output: str, f_lo: float = 1e-3, f_hi: float 
             result = _crossings(modal.dc.real, modal.response, *args)
         # Pole s = -1/lam lies in the right half plane when Re(lam) < 0 (lam = 0: a pole at infinity).
         result.rhp_poles = (modal.lam.real < -1e-9 * np.abs(modal.lam)).sum(axis=1).astype(float)
+        result.modal = modal
         probe = np.where(result.gbw > 0, result.gbw, f_lo)[:, None]
         if compiled:
             # Its rounding differs from LAPACK's far below MODAL_TOLERANCE, so the check picks the same designs.

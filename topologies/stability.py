@@ -44,6 +44,8 @@ from __future__ import annotations
 import numpy as np
 
 from .base import Build, Conditions
+from . import kernels
+from .loop_kernels import modal_grid_all
 from .smallsignal import Circuit, solve_batched
 
 SETTLE_BAND = 0.01          # settling band, fraction of the final value
@@ -78,19 +80,29 @@ class _Modal:
     """x_out(s) = sum_i (r0_i + s r1_i) / (1 + s lam_i) for (G + sC) x = -(b0 + s b1), as in
     smallsignal.Modal but for any pair of input columns (and kept here so its residues are at hand)."""
 
-    def __init__(self, g, c, b0, b1, out: int):
+    def __init__(self, g, c, b0, b1, out: int, eigen=None):
+        """`eigen`: (lam, vectors) of G^-1 C when the caller already has them for the same G and C (the
+        open loop shares the evaluator's, only its input column differs), saving the eigendecomposition."""
         n = g.shape[1]
-        rhs = np.concatenate([c, -b0[:, :, None], -b1[:, :, None]], axis=2)
-        sol = np.linalg.solve(g, rhs)
-        self.lam, vectors = np.linalg.eig(sol[:, :, :n])
-        coef = np.linalg.solve(vectors, sol[:, :, n:].astype(complex))
+        if eigen is None:
+            rhs = np.concatenate([c, -b0[:, :, None], -b1[:, :, None]], axis=2)
+            sol = np.linalg.solve(g, rhs)
+            self.lam, vectors = np.linalg.eig(sol[:, :, :n])
+            sol = sol[:, :, n:]
+        else:
+            self.lam, vectors = eigen
+            sol = np.linalg.solve(g, np.concatenate([-b0[:, :, None], -b1[:, :, None]], axis=2))
+        coef = np.linalg.solve(vectors, sol.astype(complex))
         row = vectors[:, out, :]
         self.r0, self.r1 = row * coef[:, :, 0], row * coef[:, :, 1]
-        self.dc = sol[:, out, n]
+        self.dc = sol[:, out, 0]
         self.g, self.c, self.b0, self.b1, self.out = g, c, b0, b1, out
 
     def response(self, freqs) -> np.ndarray:
-        s = 2j * np.pi * np.asarray(freqs, float)
+        freqs = np.asarray(freqs, float)
+        if freqs.ndim == 1 and kernels.enabled():
+            return modal_grid_all(self.r0, self.r1, self.lam, freqs)
+        s = 2j * np.pi * freqs
         s = np.broadcast_to(s, (len(self.lam), s.shape[-1]))[:, :, None]
         return ((self.r0[:, None, :] + s * self.r1[:, None, :]) / (1.0 + s * self.lam[:, None, :])).sum(axis=2)
 
@@ -117,11 +129,11 @@ def _finite_poles(lam: np.ndarray) -> np.ndarray:
     return np.abs(lam) > INFINITE_POLE * scale
 
 
-def _loop_gain(differential: Circuit, g_n, c_n, beta: float):
+def _loop_gain(differential: Circuit, g_n, c_n, beta: float, eigen=None):
     """Return ratio T(jw) of the loop broken at inn, as a function of frequency (designs, F) -> complex."""
     n = len(differential.nodes)
     out = differential.nodes.index("out")
-    modal = _Modal(differential.G[:, :n, :n], differential.C[:, :n, :n], g_n, c_n, out)
+    modal = _Modal(differential.G[:, :n, :n], differential.C[:, :n, :n], g_n, c_n, out, eigen)
     return modal, lambda f: -beta * modal.response(f)
 
 
@@ -325,7 +337,8 @@ def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float =
 
 
 def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: float = 1.0,
-                            f_lo: float = 1e-3, f_hi: float = 1e11, step: bool = True) -> dict[str, np.ndarray]:
+                            f_lo: float = 1e-3, f_hi: float = 1e11, step: bool = True,
+                            eigen=None) -> dict[str, np.ndarray]:
     """The stability metrics from the evaluator's differential and common-mode circuits (see module doc).
 
     `step=False` skips the small-step response (overshoot and settling read NaN): the search judges
@@ -356,7 +369,7 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         else:
             overshoot, settling = np.full(designs, np.nan), np.full(designs, np.nan)
 
-        opened, loop = _loop_gain(differential, g_n, c_n, beta)
+        opened, loop = _loop_gain(differential, g_n, c_n, beta, eigen)
         bad_open = opened.checked(probe)
         t0 = -beta * opened.dc.real
         crossover, margin, lowest = _phase_reading(loop, t0, f_lo, f_hi)

@@ -3,7 +3,7 @@ record naming the constraints the closest design misses, by how much."""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import pandas as pd
 
@@ -34,6 +34,7 @@ class TopologyFront:
     build: object           # the front designs' Build, reused for the netlists
     evaluations: int
     history: list
+    piles: list = field(default_factory=list)   # search.bounds.Pile: where the box, not physics, decides
 
 
 @dataclass

@@ -6,6 +6,7 @@ import numpy as np
 
 from ampfront import topologies
 from ampfront.optimize.outputs.tables import front_table
+from ampfront.optimize.search.bounds import piles
 from ampfront.optimize.search.engine import Progress, run_search
 from ampfront.optimize.search.outcome import Infeasible, Miss, Outcome, TopologyFront
 from ampfront.optimize.search.problem import DesignProblem
@@ -30,7 +31,7 @@ def search_topology(study: Study, tech, name: str, progress: Progress | None) ->
     names = [f"{topology.prefix}_{i + 1:03d}" for i in range(len(result.X))]
     table = front_table(name, names, metrics, build, x, study.constraints)
     if result.feasible:
-        return TopologyFront(name, table, build, result.evaluations, result.history)
+        return TopologyFront(name, table, build, result.evaluations, result.history, piles(name, problem, result.X))
     # The closest design: least total normalized violation (the search's own measure).
     violations = np.column_stack([np.nan_to_num(np.maximum(c.violation(metrics), 0), nan=1e9)
                                   for c in study.constraints])

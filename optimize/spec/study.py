@@ -201,8 +201,8 @@ def _constraints(spec: dict, cm_range: tuple[float, float], lifted: frozenset = 
     values |= {**spec, "saturation_margin": spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)}
     out = [Constraint(b.key, b.metric, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
            for b in BOUNDS.values() if b.key in values]
-    out += [Constraint(f"{b.key}_{m}", m, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
-            for b in BOUNDS.values() if b.key in values for m in b.also]
+    out += [Constraint(f"{b.key}_{suffix}", m, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
+            for b in BOUNDS.values() if b.key in values for suffix, m in b.also]
     out += [Constraint(r.key, r.metric, r.sense, r.value, r.scale) for r in RULES.values() if r.key not in lifted]
     out += [Constraint(r.key, r.metric, r.sense, level, r.scale) for r, level in zip(INPUT_CM, cm_range)]
     return tuple(out)
