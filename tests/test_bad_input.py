@@ -75,6 +75,9 @@ CASES = {
     "slew_wrong_unit": (GOOD_SPEC + 'min_slew_rate = "5 V"\n', "spec.min_slew_rate"),
     "noise_band_zero": (GOOD_SPEC + 'noise_band = ["0 Hz", "1 kHz"]\n', "spec.noise_band"),
     "gain_margin_zero": (GOOD_SPEC + 'min_gain_margin = "0 dB"\n', "spec.min_gain_margin"),
+    "spot_noise_one_value": (GOOD_SPEC + 'max_noise_at = "20 nV/sqrt(Hz)"\n', "spec.max_noise_at"),
+    "spot_noise_wrong_unit": (GOOD_SPEC + 'max_noise_at = ["20 nV/sqrt(Hz)", "10 kV"]\n', "spec.max_noise_at"),
+    "spot_noise_reversed": (GOOD_SPEC + 'max_noise_at = ["10 kHz", "20 nV/sqrt(Hz)"]\n', "spec.max_noise_at"),
 }
 
 

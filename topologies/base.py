@@ -45,6 +45,8 @@ class Conditions:
     i_out: np.ndarray | float = 0.0   # DC current pushed into the output node by what follows it, A
     noise_band: tuple[float, float] = (1.0, 1e6)   # Hz, the band input-referred RMS noise integrates over
     beta: float = 1.0       # feedback factor the loop is closed at for the stability figures (unity gain)
+    # Spot-noise limits: ((V/sqrt(Hz), Hz), ...), input-referred density at each frequency.
+    noise_spots: tuple[tuple[float, float], ...] = ()
 
     @property
     def out_level(self):

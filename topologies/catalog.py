@@ -107,6 +107,9 @@ _DECLARED = (
     _m("noise_100hz_v_rthz", "V/√Hz", "Noise at 100 Hz", "min"),
     _m("noise_corner_hz", "Hz", "1/f corner", "min", in_report=True),
     _m("noise_rms_v", "V", "Noise in band", "min", display_unit="Vrms", in_report=True),
+    _m("noise_spot_v_rthz", "V/√Hz", "Spot noise (closest to its limit)", "min",
+       doc="input-referred density at the study's max_noise_at point that comes nearest its limit"),
+    _m("noise_spot_ratio", "1", "Spot noise / its limit", "min", "fixed", display_unit="×"),
     # Output-stage figures.
     _m("quiescent_out_a", "A", "Output quiescent current", None),
     _m("min_device_current_a", "A", "Least output-device current at full drive", None),
@@ -189,6 +192,9 @@ class Bound:
     # Held even when the study does not set it: what any op-amp block a designer would draw stays within
     # (0.1 mm² of area, 2 mm of width for one device group; common practice, README "Buildability").
     default: float | None = None
+    # "value": one quantity in `dimension`; "spots": a list of [limit, frequency] pairs (the metric is then
+    # the worst spot's ratio to its limit, bounded by 1).
+    form: Literal["value", "spots"] = "value"
 
 
 BOUNDS: dict[str, Bound] = {b.key: b for b in (
@@ -205,6 +211,9 @@ BOUNDS: dict[str, Bound] = {b.key: b for b in (
     Bound("max_offset_sigma", "offset_sigma_v", "max", "V", "maximum 1σ offset"),
     Bound("max_noise_density", "noise_thermal_v_rthz", "max", "V/sqrt(Hz)", "maximum white noise density"),
     Bound("max_noise_rms", "noise_rms_v", "max", "V", "maximum noise in band"),
+    # max_noise_at = [["20 nV/sqrt(Hz)", "10 kHz"], ...]: read by the study into Conditions.noise_spots;
+    # the constraint holds the worst spot's ratio to its limit at 1.
+    Bound("max_noise_at", "noise_spot_ratio", "max", "V/sqrt(Hz)", "maximum spot noise", form="spots"),
     Bound("min_output_current", "peak_out_a", "min", "A", "minimum output current"),
     Bound("min_cmrr", "cmrr_db", "min", "dB", "minimum CMRR", 1.0),
     Bound("min_psrr", "psrr_db", "min", "dB", "minimum PSRR", 1.0),
@@ -278,6 +287,8 @@ def spec_keys() -> tuple[str, ...]:
 
 def format_spec(key: str, value) -> str:
     """A spec value as a person reads it, in the unit of the metric it bounds."""
+    if key == "max_noise_at":
+        return ", ".join(f"{eng(limit, 'V/√Hz')} at {eng(f, 'Hz')}" for limit, f in value)
     if key in BOUNDS:
         return METRICS[BOUNDS[key].metric].format(value)
     condition = CONDITIONS[key]

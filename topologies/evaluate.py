@@ -76,7 +76,7 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         build = topology.build(x, tech, cond)
         circuit = small_signal(build, cond)
         loop = loop_metrics(circuit, "out")
-        noise = noise_metrics(circuit, build, tech, loop.gain, cond.noise_band)
+        noise = noise_metrics(circuit, build, tech, loop.gain, cond.noise_band, cond.noise_spots)
         # Open-loop output resistance, inputs at AC ground, without the load resistor.
         unloaded = circuit if not np.isfinite(cond.r_load) else small_signal(build, replace(cond, r_load=np.inf))
         r_out = unloaded.transimpedance("out")("out")

@@ -28,9 +28,12 @@ def _band_integral(exponent: float, f1: float, f2: float) -> float:
     return (f2 ** (1 - exponent) - f1 ** (1 - exponent)) / (1 - exponent)
 
 
-def noise_metrics(circuit: Circuit, build: Build, tech: Technology, gain, band: tuple[float, float]):
+def noise_metrics(circuit: Circuit, build: Build, tech: Technology, gain, band: tuple[float, float],
+                  spots: tuple[tuple[float, float], ...] = ()):
     """Input-referred: white density, flicker density at 1 Hz (V/sqrt(Hz)), the 1/f corner (Hz) and the RMS
-    noise over `band` (Hz), with S(f) = S_white + sum over polarities of S_flicker(1 Hz) / f^EF."""
+    noise over `band` (Hz), with S(f) = S_white + sum over polarities of S_flicker(1 Hz) / f^EF; with
+    `spots` ((limit V/sqrt(Hz), frequency Hz), ...), the density at the spot that comes closest to its
+    limit and the ratio to that limit (<= 1 where every spot is met)."""
     to_out = circuit.transimpedance("out")
     kt4 = 4 * BOLTZMANN * tech.temperature
     g2 = np.asarray(gain, float) ** 2
@@ -58,7 +61,14 @@ def noise_metrics(circuit: Circuit, build: Build, tech: Technology, gain, band: 
     # A technology without flicker data leaves the corner unknown rather than at the bracket's edge.
     corner = np.where(np.isfinite(flicker["n"] + flicker["p"]), corner, np.nan)
     total = white * (f2 - f1) + sum(flicker[p] * _band_integral(exponents[p], f1, f2) for p in flicker)
+    spot = {}
+    if spots:
+        ratios = np.array([density(f) / limit for limit, f in spots])
+        worst = np.nanargmax(np.where(np.isnan(ratios), np.inf, ratios), axis=0)
+        spot = {"noise_spot_ratio": ratios.max(axis=0),
+                "noise_spot_v_rthz": np.array([density(f) for _, f in spots])[worst, np.arange(len(white))]}
     return {
+        **spot,
         "noise_thermal_v_rthz": np.sqrt(white),
         "noise_flicker_1hz_v_rthz": np.sqrt(flicker["n"] + flicker["p"]),
         "noise_1hz_v_rthz": density(1.0),

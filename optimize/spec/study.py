@@ -26,7 +26,7 @@ DEFAULT_TECHNOLOGY = "sky130"   # its default corner: tt, 27 degC
 # take a range, are read by their own functions below).
 SPEC_SCHEMA = {
     **{c.key: Field(c.dimension, c.required) for c in CONDITIONS.values() if c.form == "value"},
-    **{b.key: Field(b.dimension) for b in BOUNDS.values()},
+    **{b.key: Field(b.dimension) for b in BOUNDS.values() if b.form == "value"},
 }
 SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed": Field("int", positive=False)}
 # Search sizes a 24 GB, 2-core machine finishes; beyond them a study is a typo, not a plan. pymoo's NSGA-II
@@ -141,6 +141,25 @@ def _title(source: str, raw, default: str) -> str:
     return raw
 
 
+def _noise_spots(source: str, raw) -> tuple[tuple[float, float], ...]:
+    """max_noise_at: one ["20 nV/sqrt(Hz)", "10 kHz"] pair, or a list of them."""
+    from ampfront.topologies.schema import read_value
+
+    if raw is None:
+        return ()
+    expected = 'a limit and a frequency ["20 nV/sqrt(Hz)", "10 kHz"], or a list of such pairs'
+    pairs = raw if isinstance(raw, list) and raw and all(isinstance(p, list) for p in raw) else [raw]
+    out = []
+    for pair in pairs:
+        if not isinstance(pair, list) or len(pair) != 2:
+            raise InputError(source, "spec.max_noise_at", expected, raw)
+        out.append((read_value(source, "spec.max_noise_at", pair[0], Field("V/sqrt(Hz)")),
+                    read_value(source, "spec.max_noise_at", pair[1], Field("Hz"))))
+    if len(out) > 20:
+        raise InputError(source, "spec.max_noise_at", "at most 20 spots", len(out))
+    return tuple(out)
+
+
 def load_study(path: Path, topology_names, text: str | None = None) -> Study:
     """Read and validate a study; `text` stands in for the file's content (a results folder's copy)."""
     source = str(path)
@@ -151,10 +170,14 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
     spec_raw = dict(raw["spec"]) if isinstance(raw["spec"], dict) else raw["spec"]
     cm_raw = spec_raw.pop("input_cm", None) if isinstance(spec_raw, dict) else None
     band_raw = spec_raw.pop("noise_band", None) if isinstance(spec_raw, dict) else None
+    spots_raw = spec_raw.pop("max_noise_at", None) if isinstance(spec_raw, dict) else None
     spec = read_table(source, "spec.", spec_raw, SPEC_SCHEMA)
     supply = spec["supply"]
     cm_range = _input_cm(source, cm_raw, supply)
     noise_band = _noise_band(source, band_raw)
+    spots = _noise_spots(source, spots_raw)
+    if spots:
+        spec["max_noise_at"] = spots
     swing = spec.get("min_output_swing")
     if swing is not None and swing >= supply:
         raise InputError(source, "spec.min_output_swing", f"a swing below the supply ({eng(supply, 'V')})", raw["spec"]["min_output_swing"])
@@ -184,7 +207,7 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
     constraints = _constraints(spec, cm_range, frozenset(lifted))
     conditions = Conditions(vdd=supply, c_load=spec["load_capacitance"],
                             r_load=spec.get("load_resistance", np.inf), v_cm=0.5 * (cm_range[0] + cm_range[1]),
-                            noise_band=noise_band)
+                            noise_band=noise_band, noise_spots=spots)
     return Study(
         path=path, title=_title(source, raw.get("title"), path.stem), spec=spec, conditions=conditions,
         cm_range=cm_range, constraints=constraints, objectives=objectives,
@@ -199,6 +222,8 @@ def _constraints(spec: dict, cm_range: tuple[float, float], lifted: frozenset = 
     the rules every design obeys whatever the spec (catalog.RULES)."""
     values = {b.key: b.default for b in BOUNDS.values() if b.default is not None}
     values |= {**spec, "saturation_margin": spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)}
+    # A spot-noise list is held as its worst ratio to the limits: at most 1.
+    values = {k: (1.0 if k in BOUNDS and BOUNDS[k].form == "spots" else v) for k, v in values.items()}
     out = [Constraint(b.key, b.metric, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
            for b in BOUNDS.values() if b.key in values]
     out += [Constraint(f"{b.key}_{suffix}", m, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
