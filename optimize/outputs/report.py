@@ -19,7 +19,7 @@ from ampfront.optimize.outputs import cards, plots
 from ampfront.optimize.outputs.knee import KNEE_NAME
 from ampfront.optimize.outputs.verdict import Verdict, flag, verdict
 from ampfront.optimize.spec.study import Study
-from ampfront.topologies.catalog import METRICS, OBJECTIVES, format_spec, spec_label
+from ampfront.topologies.catalog import M, METRICS, OBJECTIVES, format_spec, spec_label
 
 CAUTION = ("Pre-layout estimates from analytic device models. Confirm every design with the foundry's models, "
            "sign-off simulation across corners and the team's design review before committing to it.")
@@ -105,7 +105,7 @@ def _selection_data(df: pd.DataFrame, titles: dict[str, str], with_card: set[str
     for _, row in df.iterrows():
         figures = [[METRICS[k].label, _fmt(k, row[k])] for k in SHOWN if k in row]
         sizes = [[c[2:-3], f"{float(row[c]):.3g} µm / {float(row['l_' + c[2:]]):.3g} µm",
-                  METRICS["supply_current_a"].format(float(row["id_" + c[2:-3] + "_a"]))]
+                  METRICS[M.supply_current_a].format(float(row["id_" + c[2:-3] + "_a"]))]
                  for c in df.columns if c.startswith("w_") and c.endswith("_um")
                  and "l_" + c[2:] in row and "id_" + c[2:-3] + "_a" in row and pd.notna(row[c])]
         data[str(row["design"])] = {"title": titles.get(row["topology"], str(row["topology"])), "figures": figures,
