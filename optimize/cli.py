@@ -199,3 +199,15 @@ def main_with(args: list[str]) -> None:
         _say("ampfront: interrupted")
         code = 130
     sys.exit(code if isinstance(code, int) else 0)
+
+
+@app.command()
+def report(folder: Path = typer.Argument(..., help="a folder written by 'ampfront run'")) -> None:
+    """Write FOLDER's report.html again from its own data, with ngspice's figures once check.csv is there."""
+    from ampfront.optimize.outputs.refresh import refresh
+
+    try:
+        path = refresh(folder)
+    except (InputError, PluginError) as error:
+        _fail(str(error), 2)
+    _say(f"report -> {path}")

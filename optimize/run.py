@@ -103,7 +103,8 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     with staged_directory(final) as stage:
         table.to_csv(stage / "front.csv", index=False, float_format="%.9g")
         summary.wall_s = time.perf_counter() - started
-        (stage / "report.html").write_text(report.render(table, study, tech.name, summary), encoding="utf-8")
+        builds = {outcome.name: outcome.build for outcome in chosen}
+        (stage / "report.html").write_text(report.render(table, study, tech.name, summary, builds), encoding="utf-8")
         for outcome in chosen:
             rows = table[table["topology"] == outcome.name]
             write_netlists(stage / "netlists", study, tech, outcome.name, rows, outcome.build)
