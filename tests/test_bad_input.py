@@ -142,7 +142,7 @@ def test_characterize_out_that_is_a_file(tmp_path):
 def test_characterize_names_a_missing_device(tmp_path):
     """A device the library does not define: ngspice's complaint becomes one clear line."""
     proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "characterize", "--out", str(tmp_path / "t"),
-                           "--nmos", "sky130_fd_pr__nfet_99v9", "--lengths", "0.5"],
+                           "--nmos", "sky130_fd_pr__nfet_99v9", "--lengths", "0.5", "--no-flicker"],
                           capture_output=True, text=True, timeout=300)
     assert proc.returncode == 1, proc.stderr
     assert "sky130_fd_pr__nfet_99v9" in proc.stderr and "device name not in the library" in proc.stderr

@@ -142,3 +142,32 @@ def test_out_of_table_queries_are_nan_not_extrapolated(tt):
     assert np.isnan(tt.current("n", 1e-6, 20e-6, 0.9, 0.9, 0.0)).all()       # L beyond the grid
     assert np.isnan(tt.vgs_for_current("n", 1e-6, 0.5e-6, 1.0, 0.9, 0.0)).all()  # 1 A/um: unreachable
     assert np.isnan(tt.size("n", 60.0, 0.5e-6, 1e-6, 0.9, 0.0)[1]).all()      # gm/ID above the physical limit
+
+
+@pytest.mark.spice
+def test_characterize_writes_tables_and_flicker_from_the_models(tmp_path):
+    """`ampfront characterize` end to end on one length: both tables and the flicker file, whose
+    coefficient matches the shipped one measured the same way (reference: ngspice noise analysis of the
+    SkyWater models; the shipped file came from a full characterization)."""
+    import json
+
+    from tests.clirun import ampfront
+
+    one = ampfront("characterize", "--out", tmp_path / "t", "--lengths", "0.5")
+    assert one.returncode == 2 and "--no-flicker" in one.stderr
+    proc = ampfront("characterize", "--out", tmp_path / "t", "--lengths", "0.5,0.8", timeout=900)
+    assert proc.returncode == 0, proc.stderr
+    written = sorted(p.name for p in (tmp_path / "t").iterdir())
+    assert written == ["flicker__tt__27C.json", "sky130_fd_pr__nfet_01v8__tt__27C.npz",
+                       "sky130_fd_pr__pfet_01v8__tt__27C.npz"]
+    fresh = json.loads((tmp_path / "t" / "flicker__tt__27C.json").read_text())
+    shipped_file = Path(__file__).resolve().parents[1] / "topologies/process/data/sky130/flicker__tt__27C.json"
+    shipped = json.loads(shipped_file.read_text())
+    for polarity in "np":
+        for k, l_um in enumerate((0.5, 0.8)):
+            row = shipped[polarity]["l_um"].index(l_um)
+            expected = np.array(shipped[polarity]["k_v2m2"][row])
+            got = np.array(fresh[polarity]["k_v2m2"][k])
+            np.testing.assert_allclose(got, expected, rtol=0.05)
+    again = ampfront("characterize", "--out", tmp_path / "t", "--lengths", "0.5,0.8")
+    assert again.returncode == 2 and "--overwrite" in again.stderr   # nothing replaced unasked

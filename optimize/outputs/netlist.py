@@ -182,7 +182,10 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         "meas ac gain_db find gain_db_vec at=0.1",
         "meas ac gbw_hz when gain_db_vec=0 fall=1",
         "meas ac phase_at_gbw find phase_vec at=gbw_hz",
-        "let phase_margin = 180 + phase_at_gbw",
+        # Referred to the nearest turn: a pole-zero doublet can carry the continuous phase a full turn
+        # round, which would read as a margin 360 deg off (the model reads it the same way).
+        "let pm_raw = 180 + phase_at_gbw",
+        "let phase_margin = pm_raw - 360 * floor((pm_raw + 180) / 360)",
         f"echo {tag} {M.gain_db} $&gain_db",
         f"echo {tag} {M.gbw_hz} $&gbw_hz",
         f"echo {tag} {M.phase_margin_deg} $&phase_margin",

@@ -276,6 +276,9 @@ def characterize_all(out: Path, library: str, corner: str, temperature: float, n
     from ampfront.topologies.process.tables import DeviceTable
 
     grid = _options(library, corner, temperature, nmos, pmos, lengths)
+    if flicker and len(grid.lengths) < 2:
+        # Flicker biases are read from the new tables, which interpolate in L between characterized lengths.
+        raise InputError("characterize", "--lengths", "at least two lengths with flicker (or --no-flicker)", lengths)
     ngspice()
     lib = model_library(library, corner)
     tables = {p: out / f"{d}__{corner}__{temperature:g}C.npz" for p, d in (("n", nmos), ("p", pmos))}

@@ -16,7 +16,7 @@ import numpy as np
 
 from ampfront.topologies.process.tables import DeviceTable
 
-from ampfront.optimize.simulator.characterize import _run
+from ampfront.optimize.simulator.characterize import CharacterizeError, _run
 from ampfront.topologies.process.libraries import ModelLibrary
 
 FORMAT = "ampfront-flicker/1"
@@ -47,6 +47,10 @@ def measure(lib: ModelLibrary, table: DeviceTable, temp: float) -> dict:
     slope = np.full_like(k_grid, np.nan)
     for i, l in enumerate(table.l):
         vgs = table.solve_vgs("gmid", np.full(len(GM_ID_LEVELS), l), np.log(GM_ID_LEVELS), VDS, 0.0, from_top=True)
+        if not np.isfinite(vgs).all():
+            # A bias the table cannot give would be simulated as garbage; say so instead.
+            raise CharacterizeError(f"{device} L = {l * 1e6:g} um: the table reaches no bias for gm/ID "
+                                    f"{', '.join(f'{g:g}' for g, v in zip(GM_ID_LEVELS, vgs) if not np.isfinite(v))}")
         with tempfile.TemporaryDirectory(prefix="ampfront-flicker-") as tmp:
             out = _run(_deck(lib, device, polarity, l * 1e6, width_um, vgs, temp), Path(tmp), "flicker", lib,
                        f"{device} flicker at L = {l * 1e6:g} um")
