@@ -83,8 +83,7 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         common, supply = small_signal(build, cond, "common_mode"), small_signal(build, cond, "supply")
         a_cm, a_dd = common.dc_gain("out"), supply.dc_gain("out")
         unsolved = circuit.quarantined | unloaded.quarantined | common.quarantined | supply.quarantined
-        eigen = (loop.modal.lam, loop.modal.vectors) if loop.modal is not None else None
-        stability = stability_from_circuits(circuit, common, cond.beta, step=step, eigen=eigen)
+        stability = _stability(circuit, common, loop, cond.beta, step)
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     designs = len(build.supply_current)
@@ -141,6 +140,24 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
                  "output_resistance_ohm", *noise, *stability)
         metrics.update({k: np.where(unsolved, np.nan, metrics[k]) for k in small})
     return metrics, build
+
+
+def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool) -> dict[str, np.ndarray]:
+    """Stability figures for the designs whose open loop is a working amplifier (finite gain, crossover and
+    margin, no right-half-plane pole); the rest fail those constraints already and read NaN here. Each
+    design's figures depend on its own circuit only, so the split changes no result."""
+    rows = np.flatnonzero(np.isfinite(loop.gain) & np.isfinite(loop.gbw) & np.isfinite(loop.phase_margin)
+                          & (loop.rhp_poles == 0))
+    if loop.modal is None or len(rows) == len(loop.gain):
+        eigen = (loop.modal.lam, loop.modal.vectors) if loop.modal is not None else None
+        return stability_from_circuits(circuit, common, beta, step=step, eigen=eigen)
+    part = stability_from_circuits(circuit.subset(rows), common.subset(rows), beta, step=step,
+                                   eigen=(loop.modal.lam[rows], loop.modal.vectors[rows]))
+    full = {}
+    for name, values in part.items():
+        full[name] = np.full(len(loop.gain), np.nan)
+        full[name][rows] = values
+    return full
 
 
 def _reported(topology: Topology, build: Build) -> dict[str, np.ndarray]:
