@@ -134,7 +134,7 @@ def test_characterize_out_that_is_a_file(tmp_path):
     target = tmp_path / "a_file"
     target.write_text("mine\n")
     proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "characterize", "--out", str(target),
-                           "--lengths", "0.5"], capture_output=True, text=True, timeout=120)
+                           "--lengths", "0.5", "--no-flicker"], capture_output=True, text=True, timeout=120)
     assert proc.returncode == 2 and "--out" in proc.stderr and len(proc.stderr.strip().splitlines()) == 1
     assert target.read_text() == "mine\n"
 

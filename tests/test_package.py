@@ -43,11 +43,13 @@ def test_wheel_ships_every_table_and_runs_a_sky130_study_anywhere(installed, tmp
     (tmp_path / "optimize.py").write_text("raise SystemExit('the user's optimize.py was imported')\n")
     (tmp_path / "topologies.py").write_text("raise SystemExit('the user's topologies.py was imported')\n")
     (tmp_path / "study.toml").write_text(TINY_STUDY.replace('technology = "generic180"', 'technology = "sky130"'))
+    # As a user runs it: no PYTHONPATH pointing back at a source tree.
+    env = {k: v for k, v in os.environ.items() if k != "PYTHONPATH"}
     where = subprocess.run([str(python), "-c", "import ampfront, ampfront.topologies as t; print(t.__file__)"],
-                           cwd=tmp_path, capture_output=True, text=True, timeout=120)
+                           cwd=tmp_path, capture_output=True, text=True, timeout=120, env=env)
     assert str(python.parent.parent) in where.stdout, where.stdout + where.stderr
     proc = subprocess.run([str(python), "-m", "ampfront.optimize", "run", "study.toml", "--out", "out"], cwd=tmp_path,
-                          capture_output=True, text=True, timeout=600)
+                          capture_output=True, text=True, timeout=600, env=env)
     assert proc.returncode == 0, proc.stderr
     assert (tmp_path / "out" / "front.csv").is_file()
 
