@@ -50,7 +50,7 @@ def test_testbench_runs_from_any_folder(square_law_run, tmp_path):
 def test_subcircuit_contract(demo_run):
     """Only the subcircuit: the agreed ports, no sources, analyses or model cards."""
     for path in sorted((demo_run / "netlists").glob("*.sp")):
-        if path.name.endswith(("_tb.sp", "_swing.sp")):
+        if path.name.endswith(("_tb.sp", "_swing.sp", "_step.sp")):
             continue
         text = path.read_text()
         lines = [line for line in text.splitlines() if line and not line.startswith("*")]
