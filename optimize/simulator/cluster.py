@@ -14,12 +14,15 @@ import logging
 import os
 from collections.abc import Iterable, Iterator
 
-from ampfront.optimize.simulator.tasks import Outcome, Task, run_task
+from ampfront.optimize.simulator.tasks import OPEN_LOOP, STEP, SWING, Outcome, Task, run_task
 
 WORKER_LOST = "worker lost"
 # For a task that raised on its worker (it should not: run_task turns every simulation failure into an
 # Outcome), not for killed workers, which the scheduler's allowed-failures governs.
 RETRIES = 2
+# The open loop first, then the swing sweep, then the slower step: a check cut short has the cheapest,
+# most judged figures of every design rather than all figures of a few.
+PRIORITY = {OPEN_LOOP: 2, SWING: 1, STEP: 0}
 # How many times a task may be on a worker that died before the scheduler gives up on it.
 ALLOWED_FAILURES = 3
 
@@ -73,7 +76,8 @@ def run(dask_client, tasks: Iterable[Task]) -> Iterator[tuple[Task, Outcome]]:
     by_key = {}
     futures = []
     for task in tasks:
-        future = dask_client.submit(run_task, task, key=f"ampfront-{task.key}", pure=False, retries=RETRIES)
+        future = dask_client.submit(run_task, task, key=f"ampfront-{task.key}", pure=False, retries=RETRIES,
+                                     priority=PRIORITY.get(task.testbench, 0))
         by_key[future.key] = task
         futures.append(future)
     try:
