@@ -31,7 +31,7 @@ class Task:
     v_cm: float = 0.9                   # where the swing sweep reads its mid-scale gain
     timeout: float = 120.0
     corner: str = "nominal"
-    digest: str = field(default="", compare=False)
+    digest: str = field(default="", compare=False)   # deck_digest of the above; make_task fills it in
 
     @property
     def deck(self) -> str:
@@ -40,7 +40,7 @@ class Task:
     @property
     def key(self) -> str:
         """Unique per design, testbench and netlist text: Dask's key, and how a rerun knows what is done."""
-        return f"{self.design}:{self.testbench}:{self.corner}:{self.digest or deck_digest(self.files, self.spice_init)}"
+        return f"{self.design}:{self.testbench}:{self.corner}:{self.digest}"
 
 
 def deck_digest(files, spice_init) -> str:

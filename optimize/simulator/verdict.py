@@ -89,7 +89,8 @@ def rows(task: Task, outcome: Outcome, topology: str, model: dict, kind: str, co
                 error, bound, _ = agreement(metric, kind, m, s)
                 ok = error <= bound
                 reason = "" if ok else f"off by {error:.3g} (bound {bound:g})"
-            ok = ok and math.isfinite(s) and math.isfinite(m)
+            if not (math.isfinite(s) and math.isfinite(m)):
+                ok, reason = False, "not measured" if not math.isfinite(s) else "no model value"
             sim_margin = _spec(metric, s, constraints)[2] if spec_name else math.nan
             row.update(simulated=s, error=error, bound=bound, status=AGREES if ok else DISAGREES, reason=reason,
                        simulated_margin=sim_margin,
