@@ -261,7 +261,8 @@ def wide(rows: pd.DataFrame) -> pd.DataFrame:
             entry[f"{r['metric']}_error"] = r.get("error", math.nan)
             if r["status"] != AGREES:
                 label = METRICS[r["metric"]].label
-                problems.append(f"{label} outside the agreement bound" if r["status"] == verdict.DISAGREES
+                bound = "swing" if r["testbench"] == SWING else "agreement"
+                problems.append(f"{label} outside the {bound} bound" if r["status"] == verdict.DISAGREES
                                 else f"{r['testbench']} {r['status']}: {r.get('reason', '')}")
         entry["within_bounds"] = not problems
         entry["status"] = problems[0] if problems else "ok"
