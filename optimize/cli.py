@@ -71,34 +71,47 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
 
 @app.command()
 def check(folder: Path = typer.Argument(..., help="a folder written by 'ampfront run'"),
-          designs: int = typer.Option(5, min=1, max=10_000, help="how many designs, spread along the front"),
-          timeout: float = typer.Option(120.0, min=1.0, max=3600.0, help="seconds one ngspice run may take")) -> None:
-    """Rebuild front designs from the folder's data, simulate them in ngspice, compare with the model."""
-    from ampfront.optimize.simulator.check import AGREEMENT, check_folder
-    from ampfront.optimize.simulator.ngspice import SpiceError, ngspice
-    from ampfront.topologies.catalog import METRICS, M
+          designs: str = typer.Option("5", help="which front designs: all | knee | extremes | N (knee and "
+                                      "extremes first, then spread) | name,name"),
+          whole_front: bool = typer.Option(False, "--whole-front", help="choose over the merged front instead "
+                                           "of per topology"),
+          scheduler: str = typer.Option(None, help="an existing Dask scheduler (tcp://host:8786); default: a "
+                                        "local cluster"),
+          workers: int = typer.Option(None, min=1, max=1024, help="local cluster size (default: one per core)"),
+          fresh: bool = typer.Option(False, "--fresh", help="ignore the results an earlier check left in "
+                                     "check.csv and simulate everything again"),
+          timeout: float = typer.Option(120.0, min=1.0, max=3600.0, help="seconds one ngspice run may take"),
+          quiet: bool = typer.Option(False, "--quiet", "-q", help="no progress bar")) -> None:
+    """Rebuild front designs from the folder's data, simulate them in ngspice on Dask, compare with the
+    model and the study's spec; every judged figure goes to FOLDER/check.csv as it arrives."""
+    from ampfront.optimize.simulator.check import verify
+    from ampfront.optimize.simulator.cluster import ClusterError
+    from ampfront.optimize.simulator.report import lines, summary
+    from ampfront.optimize.simulator.selection import SelectionError
 
+    bar = Progress(TextColumn("{task.description:<22}"), BarColumn(), MofNCompleteColumn(), TimeElapsedColumn(),
+                   console=err, disable=quiet or not err.is_terminal)
+    task = bar.add_task("testbenches", total=None)
     try:
-        ngspice()
-        table = check_folder(folder, designs, timeout)
+        with bar:
+            result = verify(folder, designs, timeout, scheduler, workers, fresh, not whole_front,
+                            lambda done, total: bar.update(task, completed=done, total=total))
+    except SelectionError as error:
+        _fail(f"--designs: expected {error}", 2)
     except (InputError, PluginError) as error:
         _fail(str(error), 2)
-    except SpiceError as error:
+    except ClusterError as error:
         _fail(str(error), 1)
+    except OSError as error:
+        _fail(f"{folder}: could not write check.csv ({error})", 1)
     except KeyboardInterrupt:
-        _fail("interrupted; ngspice runs stopped", 130)
-    shown = [m for m in (*AGREEMENT, M.out_low_v, M.out_high_v)]
-    for _, r in table.iterrows():
-        typer.echo(f"{r['design']} ({r['topology']}): {'agrees' if r['within_bounds'] else 'DISAGREES'} "
-                   f"[{r['status']}]")
-        for metric in shown:
-            if f"{metric}_model" not in r or r[f"{metric}_model"] != r[f"{metric}_model"]:
-                continue
-            m = METRICS[metric]
-            typer.echo(f"    {m.label:<24} model {m.format(r[f'{metric}_model']):>14}   "
-                       f"ngspice {m.format(r[f'{metric}_spice']):>14}")
-    if not table["within_bounds"].all():
-        raise typer.Exit(1)
+        _fail("interrupted; ngspice runs stopped, finished results kept in check.csv", 130)
+    for line in lines(result):
+        typer.echo(line)
+    text, code = summary(result)
+    _say(text)
+    if code:
+        raise typer.Exit(code)
 
 
 @app.command()

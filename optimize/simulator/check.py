@@ -1,16 +1,18 @@
 """`ampfront check`: rebuild chosen front designs from the results folder's own data, simulate them in
-ngspice, and compare with what the model predicts.
+ngspice on Dask workers, and compare with what the model predicts; every judged figure kept in check.csv.
 
 A results folder may come from a colleague: nothing in it is run. The designs are rebuilt from the study
-text and design vectors the folder records, their netlists written afresh by ampfront into a private
-folder, and a testbench in the folder that differs from what ampfront would write is refused.
+text and design vectors the folder records, their netlists written afresh by ampfront and sent as text to
+the workers, and a testbench in the folder that differs from what ampfront would write is refused before
+anything runs.
 """
 
 from __future__ import annotations
 
 import json
+import math
 import re
-import tempfile
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -21,20 +23,20 @@ from ampfront import topologies
 from ampfront.optimize.outputs.folder import MANIFEST, TOOL_MARK
 from ampfront.optimize.outputs.netlist import IDENTIFIER, NetlistError, design_files, step_horizon
 from ampfront.optimize.outputs.tables import X_PREFIX, design_vectors
-from ampfront.optimize.simulator.ngspice import DEFAULT_TIMEOUT_S, SpiceError, simulate, simulate_step, simulate_swing
+from ampfront.optimize.simulator import cluster, verdict
+from ampfront.optimize.simulator.ledger import Ledger
+from ampfront.optimize.simulator.ngspice import DEFAULT_TIMEOUT_S
+from ampfront.optimize.simulator.selection import choose, spread
+from ampfront.optimize.simulator.tasks import OPEN_LOOP, STEP, SUFFIX, SWING, Task, make_task
+from ampfront.optimize.simulator.verdict import (AGREES, FIGURES, REJECTION_CEILING_DB, SWING_SHORTFALL_V,
+                                                 SWING_SLACK_V)
 from ampfront.optimize.spec.study import Study, load_study
 from ampfront.topologies.catalog import AGREEMENT, M, METRICS
 from ampfront.topologies.errors import InputError
 from ampfront.topologies.process.techfile import file_hash, load
 
-# Rejection of an ideal, unmismatched circuit beyond this is set by residual bias asymmetries, not by the
-# circuit; real parts are limited by mismatch long before. Both sides are compared clipped here.
-REJECTION_CEILING_DB = 100.0
-# Swing from the DC sweep into the load (ngspice.simulate_swing): the model's swing keeps every device of
-# the signal path saturated, so it may end this much short of where the swept gain collapses, and may claim
-# at most SWING_SLACK_V more than the sweep shows.
-SWING_SLACK_V = 0.05
-SWING_SHORTFALL_V = 0.3
+CORNER = "nominal"   # corners are verified one at a time later; the column is there already
+NOT_REBUILT = "not rebuildable"
 # Netlists print values to 6 significant digits; a rebuilt design may differ from the searched one in the
 # last bits, so numbers are compared to this relative tolerance and everything else exactly.
 _NUMBER_TOLERANCE = 1e-5
@@ -114,12 +116,6 @@ def _front(folder: Path, study: Study, tech) -> pd.DataFrame:
     return front
 
 
-def spread_picks(front: pd.DataFrame, count: int) -> list[int]:
-    """Designs spread along the front: evenly spaced rows of the table (it is sorted by an objective)."""
-    count = max(1, min(count, len(front)))
-    return sorted({round(i * (len(front) - 1) / max(count - 1, 1)) for i in range(count)})
-
-
 _TOKEN = re.compile(r"^([A-Za-z_]*=)?([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)$")
 
 
@@ -146,89 +142,129 @@ def same_netlist(ours: str, theirs: str) -> bool:
     return True
 
 
-def _judge(metric: str, kind: str, model: float, simulated: float) -> tuple[float, bool]:
-    mode, bound = AGREEMENT[metric][kind]
-    if metric in (M.cmrr_db, M.psrr_db):
-        model, simulated = min(model, REJECTION_CEILING_DB), min(simulated, REJECTION_CEILING_DB)
-    error = abs(simulated - model) if mode == "abs" else abs(simulated - model) / max(abs(model), 1e-30)
-    return error, bool(error <= bound)
+def spread_picks(front: pd.DataFrame, count: int) -> list[int]:
+    """Designs spread along the whole front: evenly spaced rows of the table."""
+    return spread(len(front), count)
 
 
-def check_folder(folder: Path, count: int = 5, timeout: float = DEFAULT_TIMEOUT_S) -> pd.DataFrame:
-    """Simulate `count` designs spread along the front; one row per design with `<metric>_model`,
-    `<metric>_spice`, `within_bounds` and `status` ("ok", or why the design could not be simulated)."""
+@dataclass(frozen=True)
+class Planned:
+    task: Task
+    topology: str
+    model: dict
+
+
+def plan(received: Received, picks: pd.DataFrame, timeout: float) -> tuple[list[Planned], list[dict]]:
+    """Every testbench of every picked design as a task, with what the model predicts; designs that cannot
+    be rebuilt as rows saying so. Refuses the whole folder if any netlist in it is not what ampfront
+    writes."""
+    planned, unbuilt = [], []
+    init = tuple(received.tech.spice_init or ())
+    for name, group in picks.groupby("topology", sort=False):
+        topology = topologies.available()[name]
+        study, tech = received.study, received.tech
+        metrics, build = topologies.evaluate(topology, design_vectors(group), tech, study.conditions, step=True)
+        for j, design in enumerate(group["design"]):
+            model = {k: float(v[j]) for k, v in metrics.items()}
+            try:
+                horizon = step_horizon(model[M.gbw_hz], model[M.settling_s])
+                files = design_files(build, j, tech, study.conditions, design, topology.title, horizon)
+            except NetlistError as error:
+                unbuilt += [{"design": design, "corner": CORNER, "metric": metric, "model": model.get(metric),
+                             "status": NOT_REBUILT, "topology": name, "testbench": bench, "reason": str(error)}
+                            for bench, figures in FIGURES.items() for metric in figures]
+                continue
+            _refuse_changed(received.folder, files)
+            sub = f"{design}.sp"
+            for bench in (OPEN_LOOP, SWING, STEP):
+                deck = f"{design}{SUFFIX[bench]}"
+                task = make_task(design, bench, {deck: files[deck], sub: files[sub]}, init,
+                                 study.conditions.v_cm, timeout, CORNER)
+                planned.append(Planned(task, name, model))
+    return planned, unbuilt
+
+
+def _refuse_changed(folder: Path, files: dict[str, str]) -> None:
+    for file, text in files.items():
+        theirs = folder / "netlists" / file
+        if theirs.is_file():
+            try:
+                same = same_netlist(text, theirs.read_text(encoding="utf-8"))
+            except (OSError, UnicodeDecodeError):
+                same = False
+            if not same:
+                raise InputError(str(theirs), "(netlist)", "the netlist ampfront writes for this design; it "
+                                 "was changed after the run, so ampfront will not run it")
+
+
+@dataclass
+class Verification:
+    """The long rows of every picked design (fresh and from an earlier check.csv), in front order."""
+
+    received: Received
+    rows: pd.DataFrame
+    ran: int          # tasks simulated this time
+    reused: int       # tasks whose rows an earlier check left in check.csv
+    path: Path
+
+    def wide(self) -> pd.DataFrame:
+        return wide(self.rows)
+
+
+def verify(folder: Path, designs: str = "5", timeout: float = DEFAULT_TIMEOUT_S, scheduler: str | None = None,
+           workers: int | None = None, fresh: bool = False, per_topology: bool = True,
+           progress: Callable[[int, int], None] | None = None) -> Verification:
     received = read_result(folder)
-    picks = received.front.iloc[spread_picks(received.front, count)]
-    rows = []
-    with tempfile.TemporaryDirectory(prefix="ampfront-check-") as work:
-        work = Path(work)
-        if received.tech.spice_init:
-            (work / ".spiceinit").write_text("\n".join(received.tech.spice_init) + "\n")
-        for name, group in picks.groupby("topology", sort=False):
-            rows += _check_topology(received, name, group, work, timeout)
+    picks = received.front.iloc[choose(received.front, received.study.objectives, designs, per_topology)]
+    planned, unbuilt = plan(received, picks, timeout)
+    constraints, vdd = received.study.constraints, received.study.conditions.vdd
+    rows: list[dict] = list(unbuilt)
+    with Ledger(folder, fresh) as ledger:
+        if unbuilt:
+            ledger.append(unbuilt)
+        todo = [p for p in planned if p.task.key not in ledger.done]
+        for p in planned:
+            rows += ledger.done.get(p.task.key, [])
+        if progress:
+            progress(0, len(todo))
+        if todo:
+            by_key = {p.task.key: p for p in todo}
+            with cluster.client(scheduler, workers) as dask_client:
+                for n, (task, outcome) in enumerate(cluster.run(dask_client, [p.task for p in todo]), 1):
+                    p = by_key[task.key]
+                    fresh_rows = verdict.rows(task, outcome, p.topology, p.model, received.kind, constraints, vdd)
+                    ledger.append(fresh_rows)
+                    rows += fresh_rows
+                    if progress:
+                        progress(n, len(todo))
     order = {d: k for k, d in enumerate(picks["design"])}
-    return pd.DataFrame(rows).sort_values("design", key=lambda s: s.map(order)).reset_index(drop=True)
+    table = pd.DataFrame(rows)
+    table = table.sort_values("design", key=lambda s: s.map(order), kind="stable").reset_index(drop=True)
+    return Verification(received, table, len(todo), len(planned) - len(todo), ledger.path)
 
 
-def _check_topology(received: Received, name: str, group: pd.DataFrame, work: Path, timeout: float) -> list[dict]:
-    topology = topologies.available()[name]
-    study, tech = received.study, received.tech
-    metrics, build = topologies.evaluate(topology, design_vectors(group), tech, study.conditions, step=True)
-    rows = []
-    for j, design in enumerate(group["design"]):
-        try:
-            horizon = step_horizon(float(metrics[M.gbw_hz][j]), float(metrics[M.settling_s][j]))
-            files = design_files(build, j, tech, study.conditions, design, topology.title, horizon)
-        except NetlistError as error:
-            rows.append({"design": design, "topology": name, "within_bounds": False,
-                         "status": f"not rebuildable: {error}"})
-            continue
-        for file, text in files.items():
-            theirs = received.folder / "netlists" / file
-            if theirs.is_file():
-                try:
-                    same = same_netlist(text, theirs.read_text(encoding="utf-8"))
-                except (OSError, UnicodeDecodeError):
-                    same = False
-                if not same:
-                    raise InputError(str(theirs), "(netlist)", "the netlist ampfront writes for this design; it "
-                                     "was changed after the run, so ampfront will not run it")
-            (work / file).write_text(text)
-        rows.append(_simulate_design(received, design, name, {k: float(v[j]) for k, v in metrics.items()},
-                                     work, timeout))
-    return rows
+def check_folder(folder: Path, count: int = 5, timeout: float = DEFAULT_TIMEOUT_S, **options) -> pd.DataFrame:
+    """Simulate `count` designs of each topology (its knee and extremes first, then spread along its
+    front); one row per design with `<metric>_model`, `<metric>_spice`, `within_bounds` and `status`
+    ("ok", or the first reason it is not)."""
+    return verify(folder, str(count), timeout, **options).wide()
 
 
-def _simulate_design(received: Received, design: str, name: str, model: dict, work: Path, timeout: float) -> dict:
-    entry: dict = {"design": design, "topology": name}
-    ok, status = True, "ok"
-    try:
-        got = simulate(work / f"{design}_tb.sp", timeout)
-    except SpiceError as error:
-        return {**entry, "within_bounds": False, "status": f"failed: {error}"}
-    try:
-        got.update(simulate_step(work / f"{design}_step.sp", timeout))
-    except SpiceError as error:
-        return {**entry, "within_bounds": False, "status": f"step failed: {error}"}
-    for metric in AGREEMENT:
-        error, within = _judge(metric, received.kind, model[metric], got[metric])
-        entry[f"{metric}_model"], entry[f"{metric}_spice"] = model[metric], got[metric]
-        entry[f"{metric}_error"] = error
-        ok &= within
-        if not within:
-            status = f"{METRICS[metric].label} outside the agreement bound"
-    try:
-        swept = simulate_swing(work / f"{design}_swing.sp", f"{design}_swing.dat", received.study.conditions.v_cm,
-                               timeout)
-    except SpiceError as error:
-        return {**entry, "within_bounds": False, "status": f"swing failed: {error}"}
-    for metric, sign in ((M.out_low_v, 1.0), (M.out_high_v, -1.0)):
-        entry[f"{metric}_model"], entry[f"{metric}_spice"] = model[metric], swept[metric]
-        # Positive when the model is the more conservative of the two.
-        short = sign * (model[metric] - swept[metric])
-        within = -SWING_SLACK_V <= short <= SWING_SHORTFALL_V
-        ok &= within
-        if not within:
-            status = f"{METRICS[metric].label} outside the swing bound"
-    entry["within_bounds"], entry["status"] = bool(ok), status
-    return entry
+def wide(rows: pd.DataFrame) -> pd.DataFrame:
+    out = []
+    for design, group in rows.groupby("design", sort=False):
+        entry = {"design": design, "topology": group["topology"].iloc[0]}
+        problems = []
+        for _, r in group.iterrows():
+            entry[f"{r['metric']}_model"] = r["model"]
+            entry[f"{r['metric']}_spice"] = r.get("simulated", math.nan)
+            entry[f"{r['metric']}_error"] = r.get("error", math.nan)
+            if r["status"] != AGREES:
+                label = METRICS[r["metric"]].label
+                bound = "swing" if r["testbench"] == SWING else "agreement"
+                problems.append(f"{label} outside the {bound} bound" if r["status"] == verdict.DISAGREES
+                                else f"{r['testbench']} {r['status']}: {r.get('reason', '')}")
+        entry["within_bounds"] = not problems
+        entry["status"] = problems[0] if problems else "ok"
+        out.append(entry)
+    return pd.DataFrame(out)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import os
+import re
 import shutil
 import signal
 import subprocess
@@ -22,14 +23,29 @@ from ampfront.topologies.catalog import M
 DEFAULT_TIMEOUT_S = 120.0
 
 
+# Why a run failed, as `ampfront check` records it: a reader of check.csv can tell a circuit the simulator
+# could not solve from a machine that lacks ngspice.
+MISSING, TIMEOUT, NO_CONVERGENCE, UNREADABLE, FAILED = (
+    "ngspice missing", "timeout", "no convergence", "unreadable output", "failed")
+# What ngspice prints when an analysis gives up; looked for only once a run has failed, since a run that
+# recovers (gmin or source stepping after a first failure) prints some of these too.
+_GAVE_UP = re.compile(r"timestep too small|singular matrix|no convergence|gmin stepping failed|"
+                      r"source stepping failed|dc solution failed|simulation\(s\) aborted|iteration limit",
+                      re.IGNORECASE)
+
+
 class SpiceError(Exception):
-    """ngspice is missing, failed, timed out, or did not print the measurements."""
+    """ngspice is missing, failed, timed out, or did not print the measurements; `kind` says which."""
+
+    def __init__(self, message: str, kind: str = FAILED):
+        super().__init__(message)
+        self.kind = kind
 
 
 def ngspice() -> str:
     found = shutil.which("ngspice")
     if not found:
-        raise SpiceError("ngspice is not installed (Debian/Ubuntu: apt-get install ngspice)")
+        raise SpiceError("ngspice is not installed (Debian/Ubuntu: apt-get install ngspice)", MISSING)
     return found
 
 
@@ -43,7 +59,7 @@ def run_ngspice(deck: Path, timeout: float = DEFAULT_TIMEOUT_S) -> tuple[int, st
         stdout, stderr = proc.communicate(timeout=timeout)
     except subprocess.TimeoutExpired:
         _kill_group(proc)
-        raise SpiceError(f"{deck.name}: ngspice did not finish within {timeout:g} s (killed)") from None
+        raise SpiceError(f"{deck.name}: ngspice did not finish within {timeout:g} s (killed)", TIMEOUT) from None
     except BaseException:
         _kill_group(proc)
         raise
@@ -52,16 +68,27 @@ def run_ngspice(deck: Path, timeout: float = DEFAULT_TIMEOUT_S) -> tuple[int, st
 
 def run_deck(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S, outputs: tuple[str, ...] = ()) -> str:
     """Run one deck in its own folder and return what it printed; `outputs` are files it must write."""
+    return _run(testbench, timeout, outputs)[0]
+
+
+def _run(testbench: Path, timeout: float, outputs: tuple[str, ...] = ()) -> tuple[str, str]:
     for name in outputs:
         (testbench.parent / name).unlink(missing_ok=True)
     returncode, stdout, stderr = run_ngspice(testbench, timeout)
     if returncode != 0:
         tail = (stderr or stdout).strip().splitlines()[-3:]
-        raise SpiceError(f"{testbench.name}: ngspice exit {returncode}: {' | '.join(tail)}")
+        raise _failure(f"{testbench.name}: ngspice exit {returncode}: {' | '.join(tail)}", stdout, stderr)
     for name in outputs:
         if not (testbench.parent / name).is_file():
-            raise SpiceError(f"{testbench.name}: ngspice wrote no {name}")
-    return stdout
+            raise _failure(f"{testbench.name}: ngspice wrote no {name}", stdout, stderr, UNREADABLE)
+    return stdout, stderr
+
+
+def _failure(message: str, stdout: str, stderr: str, otherwise: str = FAILED) -> SpiceError:
+    gave_up = _GAVE_UP.search(stderr) or _GAVE_UP.search(stdout)
+    if gave_up:
+        return SpiceError(f"{message} (ngspice: {gave_up.group(0)})", NO_CONVERGENCE)
+    return SpiceError(message, otherwise)
 
 
 def _kill_group(proc: subprocess.Popen) -> None:
@@ -74,11 +101,12 @@ def _kill_group(proc: subprocess.Popen) -> None:
 
 def simulate(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, float]:
     """Run one open-loop testbench; return the values it printed (SI units), rejection ratios derived."""
-    values = _tagged(run_deck(testbench, timeout))
+    stdout, stderr = _run(testbench, timeout)
+    values = _tagged(stdout)
     wanted = (*TESTBENCH_METRICS, CM_GAIN, SUPPLY_GAIN)
     missing = [k for k in wanted if k not in values or not math.isfinite(values[k])]
     if missing:
-        raise SpiceError(f"{testbench.name}: ngspice did not measure {', '.join(missing)}")
+        raise _failure(f"{testbench.name}: ngspice did not measure {', '.join(missing)}", stdout, stderr, UNREADABLE)
     out = {k: values[k] for k in TESTBENCH_METRICS}
     out[M.cmrr_db] = out[M.gain_db] - values[CM_GAIN]
     out[M.psrr_db] = out[M.gain_db] - values[SUPPLY_GAIN]
@@ -99,9 +127,10 @@ def _tagged(stdout: str) -> dict[str, float]:
 
 def simulate_step(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, float]:
     """Run a closed-loop small-step testbench; return the overshoot it measured (%)."""
-    values = _tagged(run_deck(testbench, timeout))
+    stdout, stderr = _run(testbench, timeout)
+    values = _tagged(stdout)
     if M.overshoot_pct not in values or not math.isfinite(values[M.overshoot_pct]):
-        raise SpiceError(f"{testbench.name}: ngspice did not measure the overshoot")
+        raise _failure(f"{testbench.name}: ngspice did not measure the overshoot", stdout, stderr, UNREADABLE)
     return {M.overshoot_pct: values[M.overshoot_pct]}
 
 
@@ -116,14 +145,14 @@ def simulate_swing(testbench: Path, data_file: str, v_cm: float, timeout: float 
 
     The inverter's feedback network halves the loop gain: with s = dVout/dVset, A = -2 s / (1 + s).
     """
-    run_deck(testbench, timeout, outputs=(data_file,))
+    _run(testbench, timeout, outputs=(data_file,))
     try:
         data = np.loadtxt(testbench.parent / data_file, ndmin=2)
         v_set, v_out = data[:, :2].T
     except (ValueError, IndexError) as error:
-        raise SpiceError(f"{testbench.name}: unreadable sweep output {data_file} ({error})") from None
+        raise SpiceError(f"{testbench.name}: unreadable sweep output {data_file} ({error})", UNREADABLE) from None
     if len(v_set) < 3 or not np.isfinite(data[:, :2]).all():
-        raise SpiceError(f"{testbench.name}: the sweep output {data_file} is too short or not finite")
+        raise SpiceError(f"{testbench.name}: the sweep output {data_file} is too short or not finite", UNREADABLE)
     slope = np.gradient(v_out, v_set)
     with np.errstate(divide="ignore", invalid="ignore"):
         gain = np.abs(-2 * slope / (1 + slope))

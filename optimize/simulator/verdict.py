@@ -1,0 +1,99 @@
+"""Judging what one testbench measured against the model: agreement within the check's bounds, and the
+study's own spec held to the simulated value as well as to the model's.
+
+One row per figure the testbench judges (the long form check.csv keeps); a testbench that failed gives
+the same rows with no simulated value and the failure as their status, so every figure is accounted for.
+"""
+
+from __future__ import annotations
+
+import math
+
+from ampfront.optimize.simulator.tasks import OPEN_LOOP, STEP, SWING, Outcome, Task
+from ampfront.topologies.catalog import AGREEMENT, M
+
+# Rejection of an ideal, unmismatched circuit beyond this is set by residual bias asymmetries, not by the
+# circuit; real parts are limited by mismatch long before. Both sides are compared clipped here.
+REJECTION_CEILING_DB = 100.0
+# Swing from the DC sweep into the load (ngspice.simulate_swing): the model's swing keeps every device of
+# the signal path saturated, so it may end this much short of where the swept gain collapses, and may claim
+# at most SWING_SLACK_V more than the sweep shows.
+SWING_SLACK_V = 0.05
+SWING_SHORTFALL_V = 0.3
+
+# Power is the supply current at the study's supply, so it agrees as the current does.
+BOUNDS = {**AGREEMENT, M.power_w: AGREEMENT[M.supply_current_a]}
+
+FIGURES = {
+    OPEN_LOOP: (M.gain_db, M.gbw_hz, M.phase_margin_deg, M.supply_current_a, M.power_w, M.noise_1hz_v_rthz,
+                M.noise_100hz_v_rthz, M.cmrr_db, M.psrr_db),
+    STEP: (M.overshoot_pct,),
+    SWING: (M.out_low_v, M.out_high_v, M.swing_v),
+}
+AGREES, DISAGREES = "agrees", "disagrees"
+
+
+def agreement(metric: str, kind: str, model: float, simulated: float) -> tuple[float, float, str]:
+    """(error, bound, mode): relative or absolute difference, clipped rejection for CMRR and PSRR."""
+    mode, bound = BOUNDS[metric][kind]
+    if metric in (M.cmrr_db, M.psrr_db):
+        model, simulated = min(model, REJECTION_CEILING_DB), min(simulated, REJECTION_CEILING_DB)
+    error = abs(simulated - model) if mode == "abs" else abs(simulated - model) / max(abs(model), 1e-30)
+    return error, bound, mode
+
+
+def _swing(metric: str, model: float, simulated: float) -> tuple[float, float, bool, str]:
+    """How much more the model claims than the sweep shows (V; negative: the model is conservative)."""
+    claims = model - simulated if metric != M.out_low_v else simulated - model
+    slack, short = (2 * SWING_SLACK_V, 2 * SWING_SHORTFALL_V) if metric == M.swing_v else (SWING_SLACK_V,
+                                                                                           SWING_SHORTFALL_V)
+    if claims > slack:
+        return claims, slack, False, f"model claims {claims * 1e3:.0f} mV beyond the sweep (slack {slack * 1e3:.0f} mV)"
+    if -claims > short:
+        return claims, slack, False, f"model {-claims * 1e3:.0f} mV short of the sweep (allowed {short * 1e3:.0f} mV)"
+    return claims, slack, True, ""
+
+
+def _spec(metric: str, value: float, constraints) -> tuple[str, float, float]:
+    """The tightest of the study's bounds on `metric` at `value`: (name, bound, margin; positive = met)."""
+    best = ("", math.nan, math.nan)
+    for c in constraints:
+        if c.metric != metric or not math.isfinite(value):
+            continue
+        margin = value - c.bound if c.sense == "min" else c.bound - value
+        if not math.isfinite(best[2]) or margin < best[2]:
+            best = (c.name, c.bound, margin)
+    return best
+
+
+def rows(task: Task, outcome: Outcome, topology: str, model: dict, kind: str, constraints, vdd: float) -> list[dict]:
+    got = dict(outcome.values)
+    if task.testbench == OPEN_LOOP and M.supply_current_a in got:
+        got[M.power_w] = vdd * got[M.supply_current_a]
+    if task.testbench == SWING and M.out_high_v in got:
+        got[M.swing_v] = got[M.out_high_v] - got[M.out_low_v]
+    out = []
+    for metric in FIGURES[task.testbench]:
+        m = float(model.get(metric, math.nan))
+        spec_name, spec_bound, model_margin = _spec(metric, m, constraints)
+        row = {"design": task.design, "corner": task.corner, "metric": metric, "model": m,
+               "simulated": math.nan, "error": math.nan, "bound": math.nan, "status": outcome.failure,
+               "topology": topology, "testbench": task.testbench, "netlist_sha256": task.digest,
+               "spec": spec_name, "spec_bound": spec_bound, "model_margin": model_margin,
+               "simulated_margin": math.nan, "meets_spec": "", "reason": outcome.reason}
+        if not outcome.failure:
+            s = float(got.get(metric, math.nan))
+            if task.testbench == SWING:
+                error, bound, ok, reason = _swing(metric, m, s)
+            else:
+                error, bound, _ = agreement(metric, kind, m, s)
+                ok = error <= bound
+                reason = "" if ok else f"off by {error:.3g} (bound {bound:g})"
+            if not (math.isfinite(s) and math.isfinite(m)):
+                ok, reason = False, "not measured" if not math.isfinite(s) else "no model value"
+            sim_margin = _spec(metric, s, constraints)[2] if spec_name else math.nan
+            row.update(simulated=s, error=error, bound=bound, status=AGREES if ok else DISAGREES, reason=reason,
+                       simulated_margin=sim_margin,
+                       meets_spec=("yes" if sim_margin >= 0 else "no") if spec_name else "")
+        out.append(row)
+    return out
