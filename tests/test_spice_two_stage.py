@@ -66,7 +66,7 @@ def test_check_command_reports_agreement(square_law_run):
 
     from ampfront.optimize.cli import app
 
-    result = CliRunner().invoke(app, ["check", str(demo_run), "--designs", "3"])
+    result = CliRunner().invoke(app, ["check", str(demo_run), "--designs", "3", "--whole-front"])
     assert result.exit_code == 0, result.output
     assert result.output.count(": agrees [ok]") == 3
     # Every judged figure is printed, model beside simulator.
