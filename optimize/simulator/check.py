@@ -142,10 +142,6 @@ def same_netlist(ours: str, theirs: str) -> bool:
     return True
 
 
-def spread_picks(front: pd.DataFrame, count: int) -> list[int]:
-    """Designs spread along the whole front: evenly spaced rows of the table."""
-    return spread(len(front), count)
-
 
 @dataclass(frozen=True)
 class Planned:
