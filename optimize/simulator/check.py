@@ -26,7 +26,7 @@ from ampfront.optimize.outputs.tables import X_PREFIX, design_vectors
 from ampfront.optimize.simulator import cluster, verdict
 from ampfront.optimize.simulator.ledger import Ledger
 from ampfront.optimize.simulator.ngspice import DEFAULT_TIMEOUT_S
-from ampfront.optimize.simulator.selection import choose, spread
+from ampfront.optimize.simulator.selection import choose
 from ampfront.optimize.simulator.tasks import OPEN_LOOP, STEP, SUFFIX, SWING, Task, make_task
 from ampfront.optimize.simulator.verdict import (AGREES, FIGURES, REJECTION_CEILING_DB, SWING_SHORTFALL_V,
                                                  SWING_SLACK_V)
