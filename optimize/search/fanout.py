@@ -67,7 +67,7 @@ def search_all(study, progress_factory: Callable | None, workers: int | None = N
         relay.close()
         relay.join_thread()
     pool.shutdown(wait=True)
-    return results
+    return {name: results[name] for name in study.topologies}   # the study's order, not the finishing order
 
 
 def _stop(pool: ProcessPoolExecutor) -> None:
