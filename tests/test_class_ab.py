@@ -92,6 +92,7 @@ def test_composition_refuses_clashing_names(tech):
 def test_every_single_stage_core_has_a_class_ab_variant():
     found = topologies.available()
     cores = [n for n, t in found.items() if getattr(t, "single_stage", False)]
-    assert sorted(cores) == sorted(CORES)
+    # Each single-stage core and its pMOS-input complement.
+    assert sorted(cores) == sorted(CORES + [f"{c}_pmos" for c in CORES])
     assert all(f"{c}_ab" in found for c in cores)
-    assert len(found) >= 7
+    assert len(found) >= 14

@@ -75,7 +75,10 @@ class FoldedCascode:
             # Mirror side: the folding source minus the input device feeds the diode-connected stack.
             i_src = tech.current("p", w_src, l_src, vdd - vbp1, np.maximum(vdd - fa, 1e-3), zero)
             i_cas = np.maximum(i_src - i1, 1e-12)
-            fa = vbp2 + tech.vgs_for_current("p", w_cp, l_cp, i_cas, np.maximum(fa - mirc, 1e-3), vdd - fa)
+            # Damped too: with a short-channel folding source near its edge the branch current swings with
+            # fa, and the undamped step oscillates (seen in the pMOS-input complement on SKY130).
+            fa = 0.5 * fa + 0.5 * (vbp2 + tech.vgs_for_current("p", w_cp, l_cp, i_cas, np.maximum(fa - mirc, 1e-3),
+                                                              vdd - fa))
             mirc = tech.vgs_for_current("n", w_mb, l_mb, i_cas, np.maximum(na, 1e-3), zero)
             na = vbn - tech.vgs_for_current("n", w_cn, l_cn, i_cas, np.maximum(mirc - na, 1e-3), na)
             # Output side, held at its DC level by the loop (or the stage it drives): the mirror copy sets the

@@ -1,5 +1,6 @@
 """Name -> topology: the built-ins, those installed through the `ampfront.topologies` entry-point group, and
-every single-stage core composed with every output stage (built-in or from `ampfront.output_stages`).
+each built-in core turned over (its pMOS-input complement, topologies.complement), and every single-stage
+core composed with every output stage (built-in or from `ampfront.output_stages`).
 
 Each plug-in is checked against its interface when it loads, so a broken one is refused with one line
 naming it and what it lacks, never at its first evaluation.
@@ -13,6 +14,7 @@ from importlib.metadata import entry_points
 from .base import OutputStage, Topology
 from .catalog import CORE_REPORTS, DERIVED, STAGE_REPORTS, metric
 from .class_ab import ClassABOutput
+from .complement import Complement
 from .compose import WithOutputStage
 from .errors import PluginError
 from .folded import FoldedCascode
@@ -127,6 +129,12 @@ def output_stages() -> dict[str, OutputStage]:
 
 def available() -> dict[str, Topology]:
     found = _gather(_BUILTIN, ENTRY_POINT_GROUP, "topology", check_topology, "name")
+    # Each built-in core also comes turned over (pMOS input pair, nMOS loads). A plug-in is not turned for
+    # it: whether its figures are levels or magnitudes is its author's to say (register Complement(core)).
+    for cls in _BUILTIN:
+        core = next(t for t in found.values() if type(t) is cls)
+        turned = check_topology(Complement(core), "ampfront")
+        found.setdefault(turned.name, turned)
     # Every single-stage core, built-in or not, also comes followed by every output stage.
     for core in list(found.values()):
         if core.single_stage:
