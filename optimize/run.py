@@ -18,6 +18,7 @@ from ampfront.optimize.outputs.folder import TOOL_MARK, check_destination, stage
 from ampfront.optimize.outputs.tables import device_table, versions, write_json
 from ampfront.optimize.search.engine import Progress
 from ampfront.optimize.search.merge import merged_front
+from ampfront.optimize.spec.corners import corner_set
 from ampfront.optimize.search.outcome import Infeasible, Outcome, TopologyFront
 from ampfront.optimize.search.single import search_topology
 from ampfront.optimize.spec.study import Study, load_study
@@ -44,20 +45,30 @@ class RunSummary:
         return self.front_designs > 0
 
 
-def write_netlists(folder: Path, study: Study, tech, name: str, table: pd.DataFrame, build) -> None:
+def write_netlists(folder: Path, study: Study, tech, name: str, table: pd.DataFrame, build, corners=None) -> None:
+    """Every design's netlists at the sizing corner, and with corners the same geometry's testbenches at
+    each other corner (`<design>_<corner>*.sp`: that corner's models, temperature and supply)."""
     topology = topologies.available()[name]
     folder.mkdir(exist_ok=True)
     if tech.spice_init:
         # ngspice reads .spiceinit from the folder it starts in: the testbenches run as they are from here.
         (folder / ".spiceinit").write_text("\n".join(tech.spice_init) + "\n")
-    for i, (design, gbw, settling) in enumerate(zip(table["design"], table[M.gbw_hz], table[M.settling_s])):
-        horizon = netlist.step_horizon(gbw, settling)
-        try:
-            files = netlist.design_files(build, i, tech, study.conditions, design, topology.title, horizon)
-        except netlist.NetlistError:
-            continue   # a closest design of an infeasible study that has no finite circuit to write
-        for file, text in files.items():
-            (folder / file).write_text(text)
+    at = [("", build, tech, study.conditions, table[M.gbw_hz], table[M.settling_s])]
+    if corners is not None:
+        for label, corner in list(corners.at.items())[1:]:
+            metrics = corners.by_corner[label]
+            at.append((f"_{label}", corners.builds[label], corner.tech, replace(study.conditions, vdd=corner.vdd),
+                       metrics[M.gbw_hz], metrics[M.settling_s]))
+    for suffix, built, device_model, cond, gbws, settlings in at:
+        for i, (design, gbw, settling) in enumerate(zip(table["design"], gbws, settlings)):
+            horizon = netlist.step_horizon(gbw, settling)
+            try:
+                files = netlist.design_files(built, i, device_model, cond, f"{design}{suffix}", topology.title,
+                                             horizon)
+            except netlist.NetlistError:
+                continue   # a closest design of an infeasible study that has no finite circuit to write
+            for file, text in files.items():
+                (folder / file).write_text(text)
 
 
 def _search(study: Study, tech, progress_factory, workers: int) -> dict[str, Outcome]:
@@ -107,13 +118,14 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
         (stage / "report.html").write_text(report.render(table, study, tech.name, summary, builds), encoding="utf-8")
         for outcome in chosen:
             rows = table[table["topology"] == outcome.name]
-            write_netlists(stage / "netlists", study, tech, outcome.name, rows, outcome.build)
+            write_netlists(stage / "netlists", study, tech, outcome.name, rows, outcome.build, outcome.corners)
         write_json(stage / "manifest.json", _manifest(study, tech, summary, time.perf_counter() - started))
     summary.wall_s = time.perf_counter() - started
     return summary
 
 
 def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:
+    corners = corner_set(study, tech)
     c = study.conditions
     return {
         "tool": TOOL_MARK, "format": MANIFEST_FORMAT, "complete": True, "feasible": summary.feasible,
@@ -127,6 +139,8 @@ def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:
                        "noise_band_hz": list(c.noise_band)},
         "technology": {"name": tech.name, "file": str(study.technology), "corner": study.corner,
                        "sha256": file_hash(study.technology, study.corner)},
+        # Every corner the spec was held at (the first is the one the designs were sized at).
+        "corners": [{"name": c.name, "technology": c.tech.name, "vdd_v": c.vdd} for c in corners.all] if corners else [],
         "topologies": list(study.topologies), "objectives": list(study.objectives),
         "population": study.population, "generations": study.generations,
         "evaluations": summary.evaluations, "wall_time_s": round(wall, 3),

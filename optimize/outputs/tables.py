@@ -11,22 +11,39 @@ import numpy as np
 import pandas as pd
 
 from ampfront.topologies.base import Build
-from ampfront.topologies.catalog import METRICS, is_headroom
+from ampfront.topologies.catalog import METRICS, M, is_headroom
 
 # Written at full precision, so `ampfront check` rebuilds exactly the design the search found.
 X_PREFIX = "x_"
 
 
+# Shown at every corner besides the metrics the study bounds: what a lead asks of each corner first.
+CORNER_METRICS = (M.gain_db, M.gbw_hz, M.phase_margin_deg, M.power_w, M.slew_v_per_s, M.swing_v)
+CORNER_MARK = "@"   # gain_db@ss: the gain at corner ss; the plain column is the worst corner's
+
+
+def corner_columns(constraints, corners) -> list[str]:
+    """Metrics a study with corners shows per corner, catalog order."""
+    wanted = set(CORNER_METRICS) | {c.metric for c in constraints}
+    return [name for name in METRICS if name in wanted] + sorted(n for n in wanted if is_headroom(n))
+
+
 def front_table(topology_name: str, names: list[str], metrics: dict[str, np.ndarray], build: Build,
-                x: dict[str, np.ndarray], constraints) -> pd.DataFrame:
-    """One row per design: metrics (catalog order, then headroom), constraint margins (positive = met),
-    design variables, device sizes and currents by circuit role."""
+                x: dict[str, np.ndarray], constraints, corners=None) -> pd.DataFrame:
+    """One row per design: metrics (catalog order, then headroom; with corners, the worst corner's, then
+    each corner's as `<metric>@<corner>`), constraint margins (positive = met at every corner), design
+    variables, device sizes and currents by circuit role (at the sizing corner)."""
     table: dict[str, object] = {"topology": topology_name, "design": names}
     for name in METRICS:
         if name in metrics:
             table[name] = metrics[name]
     for name in sorted(k for k in metrics if is_headroom(k)):
         table[name] = metrics[name]
+    if corners is not None:
+        for name in corner_columns(constraints, corners):
+            for corner, values in corners.by_corner.items():
+                if name in values:
+                    table[f"{name}{CORNER_MARK}{corner}"] = values[name]
     for c in constraints:
         table[f"margin_{c.name}"] = c.margin(metrics)
     for key, value in x.items():

@@ -35,6 +35,7 @@ class TopologyFront:
     evaluations: int
     history: list
     piles: list = field(default_factory=list)   # search.bounds.Pile: where the box, not physics, decides
+    corners: object = None  # topologies.corners.CornerResult of the front designs, for a study with corners
 
 
 @dataclass
@@ -45,6 +46,7 @@ class Infeasible:
     build: object
     evaluations: int
     history: list
+    corners: object = None
 
     def describe(self) -> str:
         return f"{self.name}: no design met the spec; the closest misses " + "; ".join(m.describe() for m in self.misses)

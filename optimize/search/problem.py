@@ -5,10 +5,10 @@ from __future__ import annotations
 import numpy as np
 from pymoo.core.problem import Problem
 
-from ampfront.topologies import evaluate
 from ampfront.topologies.base import Topology
 from ampfront.topologies.process.base import Technology
 
+from ampfront.optimize.spec.corners import corner_set, evaluate_study
 from ampfront.optimize.spec.study import Study
 from ampfront.topologies.catalog import OBJECTIVES
 
@@ -35,6 +35,7 @@ class DesignProblem(Problem):
         super().__init__(n_var=len(low), n_obj=len(study.objectives),
                          n_ieq_constr=len(study.constraints), xl=np.array(low), xu=np.array(high))
         self.evaluations = 0
+        self.corners = corner_set(study, tech)   # None: the study has one corner
 
     def decode(self, X: np.ndarray) -> dict[str, np.ndarray]:
         # A coordinate that is no number (NaN, an infinity) decodes to NaN, so its design fails every
@@ -44,8 +45,10 @@ class DesignProblem(Problem):
         return {v.name: 10.0 ** X[:, i] if v.log else X[:, i].copy()
                 for i, v in enumerate(self.design_variables)}
 
-    def metrics(self, X: np.ndarray):
-        return evaluate(self.topology, self.decode(X), self.tech, self.study.conditions)
+    def metrics(self, X: np.ndarray, step: bool = False):
+        """(metrics, build): at every corner of the study, each metric at its worst corner."""
+        metrics, build, _ = evaluate_study(self.topology, self.decode(X), self.tech, self.study, self.corners, step)
+        return metrics, build
 
     def _evaluate(self, X, out, *args, **kwargs):
         metrics, _ = self.metrics(X)

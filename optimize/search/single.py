@@ -10,6 +10,7 @@ from ampfront.optimize.search.bounds import piles
 from ampfront.optimize.search.engine import Progress, run_search
 from ampfront.optimize.search.outcome import Infeasible, Miss, Outcome, TopologyFront
 from ampfront.optimize.search.problem import DesignProblem
+from ampfront.optimize.spec.corners import evaluate_study
 from ampfront.optimize.spec.study import Study
 
 
@@ -27,13 +28,15 @@ def search_topology(study: Study, tech, name: str, progress: Progress | None) ->
     problem = DesignProblem(topology, tech, study)
     result = run_search(problem, study.population, study.generations, study.seed, progress)
     x = problem.decode(result.X)
-    metrics, build = topologies.evaluate(topology, x, tech, study.conditions, step=True)
+    metrics, build, corners = evaluate_study(topology, x, tech, study, problem.corners, step=True)
     names = [f"{topology.prefix}_{i + 1:03d}" for i in range(len(result.X))]
-    table = front_table(name, names, metrics, build, x, study.constraints)
+    table = front_table(name, names, metrics, build, x, study.constraints, corners)
     if result.feasible:
-        return TopologyFront(name, table, build, result.evaluations, result.history, piles(name, problem, result.X))
+        return TopologyFront(name, table, build, result.evaluations, result.history, piles(name, problem, result.X),
+                             corners)
     # The closest design: least total normalized violation (the search's own measure).
     violations = np.column_stack([np.nan_to_num(np.maximum(c.violation(metrics), 0), nan=1e9)
                                   for c in study.constraints])
     best = int(np.argmin(violations.sum(axis=1)))
-    return Infeasible(name, misses(problem, metrics, best), table, build, result.evaluations, result.history)
+    return Infeasible(name, misses(problem, metrics, best), table, build, result.evaluations, result.history,
+                      corners)

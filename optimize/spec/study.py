@@ -18,7 +18,7 @@ from ampfront.topologies.catalog import BOUNDS, CONDITIONS, DEFAULT_SATURATION_M
 from ampfront.topologies.errors import InputError
 from ampfront.topologies.schema import Field, check_keys, parse_toml, read_table, read_toml, suggest
 from ampfront.topologies.units import eng
-from ampfront.topologies.process.techfile import corners, resolve
+from ampfront.topologies.process.techfile import corners, default_corner, resolve
 
 DEFAULT_TECHNOLOGY = "sky130"   # its default corner: tt, 27 degC
 
@@ -34,7 +34,9 @@ SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed"
 SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed": (0, 2**32 - 1)}
 SEARCH_DEFAULTS = {"population": 100, "generations": 60, "seed": 1}
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]")
-TOP_KEYS = {"title", "topologies", "objectives", "technology", "corner", "spec", "search", *OPTIONAL_RULES}
+TOP_KEYS = {"title", "topologies", "objectives", "technology", "corner", "corners", "supply_tolerance", "spec",
+            "search", *OPTIONAL_RULES}
+MAX_SUPPLY_TOLERANCE = 0.3   # beyond +-30 % a supply is another design, not a tolerance
 
 
 @dataclass(frozen=True)
@@ -73,6 +75,11 @@ class Study:
     seed: int
     digest: str
     text: str = ""          # the study file as read, so a results folder can be rebuilt from it
+    # Corners every design must meet the spec at (the nominal `corner` is sized at and always included),
+    # and the supply tolerance each is evaluated at (both ends), 0 for the nominal supply only.
+    corners: tuple[str, ...] = ()
+    supply_tolerance: float = 0.0
+    nominal_corner: str | None = None
 
 
 def _input_cm(source: str, raw, supply: float) -> tuple[float, float]:
@@ -197,6 +204,16 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
             raise InputError(source, "corner", f"a corner the technology ships: {', '.join(shipped_corners) or 'none'}"
                              f"{suggest(str(corner), shipped_corners)}", corner)
 
+    corner_list = _corner_list(source, raw.get("corners"), tech_path)
+    tolerance = raw.get("supply_tolerance")
+    if tolerance is not None:
+        from ampfront.topologies.schema import read_value
+
+        tolerance = read_value(source, "supply_tolerance", tolerance, Field("%"))
+        if not tolerance < MAX_SUPPLY_TOLERANCE:
+            raise InputError(source, "supply_tolerance", f"a tolerance above 0 % and below "
+                             f"{MAX_SUPPLY_TOLERANCE:.0%}, as in \"10 %\"", raw["supply_tolerance"])
+
     lifted = set()
     for key, rule in OPTIONAL_RULES.items():
         allowed = raw.get(key, False)
@@ -214,7 +231,17 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
         topologies=names, technology=tech_path, corner=corner,
         population=search["population"], generations=search["generations"], seed=search["seed"],
         digest=hashlib.sha256(text.encode("utf-8")).hexdigest(), text=text,
+        corners=corner_list, supply_tolerance=tolerance or 0.0, nominal_corner=corner or default_corner(tech_path),
     )
+
+
+def _corner_list(source: str, raw, tech_path: Path) -> tuple[str, ...]:
+    if raw is None:
+        return ()
+    shipped_corners = corners(tech_path)
+    if not shipped_corners:
+        raise InputError(source, "corners", "no corners: the technology declares none", raw)
+    return _names(source, "corners", raw, shipped_corners, 1, len(shipped_corners))
 
 
 def _constraints(spec: dict, cm_range: tuple[float, float], lifted: frozenset = frozenset()) -> tuple[Constraint, ...]:

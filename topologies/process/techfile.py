@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import hashlib
-from dataclasses import replace
 import json
 import re
+from dataclasses import replace
 
 import numpy as np
 from pathlib import Path
@@ -106,9 +106,23 @@ _TABLE_CORNER = {"temperature": Field("degC", True, positive=False), "nmos": Fie
                  "pmos": Field("str", True), "flicker": Field("str")}
 
 
+# A square-law corner: the nominal parameter set with every |VT| shifted and every KP scaled (both
+# polarities alike: the slow and fast process corners; skewed corners would need one entry per polarity).
+_SQUARE_LAW_CORNER = {"vto_shift": Field("V", True, positive=False), "kp_scale": Field("1", True)}
+
+
 def corners(path: Path) -> list[str]:
     raw, _ = read_toml(path)
-    return sorted(raw.get("corners", {})) if raw.get("kind") == "gm_id_tables" else []
+    table = raw.get("corners", {})
+    return sorted(table) if isinstance(table, dict) and raw.get("kind") in ("gm_id_tables", "square_law") else []
+
+
+def default_corner(path: Path) -> str | None:
+    """The corner a study without `corner` is sized at: the file's default_corner, or tt if it declares one."""
+    raw, _ = read_toml(path)
+    if raw.get("kind") == "gm_id_tables":
+        return raw.get("default_corner")
+    return "tt" if "tt" in corners(path) else None
 
 
 def load(path: Path, corner: str | None = None) -> Technology:
@@ -119,10 +133,8 @@ def load(path: Path, corner: str | None = None) -> Technology:
         return _load_tables(path, raw, corner)
     if kind != "square_law":
         raise InputError(source, "kind", "one of: square_law, gm_id_tables", kind)
-    if corner not in (None, "nominal"):
-        raise InputError(source, "corner", "no corner (a square-law technology has one parameter set)", corner)
     schema = {k: v for k, v in _SQUARE_LAW_TOP.items() if v.dimension != "table"} | _LAYOUT
-    top = read_table(source, "", {k: v for k, v in raw.items() if k not in ("nmos", "pmos")},
+    top = read_table(source, "", {k: v for k, v in raw.items() if k not in ("nmos", "pmos", "corners")},
                      schema | {"nmos": Field("str"), "pmos": Field("str")})
     _check_text(source, top)
     devices = {}
@@ -132,8 +144,20 @@ def load(path: Path, corner: str | None = None) -> Technology:
         devices[polarity] = LevelOneDevice(**read_table(source, f"{polarity}.", raw[polarity], _LEVEL_ONE))
     if top["l_min"] >= top["l_max"]:
         raise InputError(source, "l_max", "a length above l_min", raw.get("l_max"))
+    name = top["name"]
+    if corner not in (None, "nominal"):
+        shipped_corners = raw.get("corners", {})
+        if not isinstance(shipped_corners, dict) or corner not in shipped_corners:
+            listed = ", ".join(sorted(shipped_corners)) if isinstance(shipped_corners, dict) else ""
+            raise InputError(source, "corner", f"a corner the file declares under [corners]: {listed or 'none'}",
+                             corner)
+        entry = read_table(source, f"corners.{corner}.", shipped_corners[corner], _SQUARE_LAW_CORNER)
+        devices = {k: replace(d, vto=d.vto + entry["vto_shift"], kp=d.kp * entry["kp_scale"])
+                   for k, d in devices.items()}
+        if entry["vto_shift"] != 0 or entry["kp_scale"] != 1:
+            name = f"{name}-{corner}"
     return SquareLaw(
-        name=top["name"], description=top.get("description", ""), supply=top["supply"],
+        name=name, description=top.get("description", ""), supply=top["supply"],
         temperature=top["temperature"] + 273.15, l_min=top["l_min"], l_max=top["l_max"],
         w_min=top["w_min"], cap_density=top["cap_density"], diffusion_length=top["diffusion_length"],
         nmos=devices["nmos"], pmos=devices["pmos"], layout=_layout(top),
