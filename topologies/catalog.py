@@ -40,7 +40,11 @@ class Metric:
         text = self.display_unit or self.unit
         if value is None or value != value:
             return f"n/a {text}"
-        return f"{value * self.scale:.{self.digits}g} {text}"
+        shown = value * self.scale
+        # 20000 µm² reads as such, not as 2e+04: whole numbers past the shown digits keep every digit.
+        if abs(shown) >= 10 ** self.digits:
+            return f"{shown:,.0f} {text}"
+        return f"{shown:.{self.digits}g} {text}"
 
     @property
     def axis_title(self) -> str:

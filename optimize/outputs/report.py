@@ -17,6 +17,7 @@ from plotly.offline import get_plotlyjs
 
 from ampfront.optimize.outputs import cards, plots
 from ampfront.optimize.outputs.knee import KNEE_NAME
+from ampfront.optimize.outputs.spread import corner_spread_html
 from ampfront.optimize.outputs.verdict import Verdict, flag, verdict
 from ampfront.optimize.spec.study import Study
 from ampfront.topologies.catalog import M, METRICS, OBJECTIVES, format_spec, spec_label
@@ -49,6 +50,11 @@ def spec_rows(study: Study) -> list[tuple[str, str]]:
     rows = [(spec_label(key), format_spec(key, value)) for key, value in study.spec.items()]
     rows.append((spec_label("input_cm"), format_spec("input_cm", study.cm_range)))
     rows.append((spec_label("noise_band"), format_spec("noise_band", study.conditions.noise_band)))
+    if study.corners or study.supply_tolerance:
+        held = ", ".join(dict.fromkeys((study.nominal_corner or "nominal", *study.corners)))
+        if study.supply_tolerance:
+            held += f" at the supply ± {study.supply_tolerance:.0%}"
+        rows.append(("held at corners", held))
     return rows
 
 
@@ -170,6 +176,7 @@ shown. Click a design for its figures.</p>
 <p>Each topology's knee and its best designs on the verdict's objectives. Netlists are in
 <code>netlists/&lt;design&gt;.sp</code>, every figure in <code>front.csv</code>.</p>
 {''.join(card_html)}</section>
+{corner_spread_html(df, titles)}
 <div class="cols"><section><h2>Spec</h2><table id="spec">{spec}</table></section>
 <section><h2>Search</h2><ul>{facts}</ul></section></div>
 <h2>All designs</h2>{_designs_table(df, titles)}
