@@ -48,7 +48,7 @@ _register("m^2", {"m^2": 1.0, "um^2": 1e-12, "µm^2": 1e-12}, prefixable=False)
 _register("V*m", {"V*m": 1.0, "mV*um": 1e-9, "mV*µm": 1e-9}, prefixable=False)
 _register("V^2/Hz", {"V^2/Hz": 1.0}, prefixable=True)
 _register("V/sqrt(Hz)", {"V/sqrt(Hz)": 1.0, "V/rtHz": 1.0}, prefixable=True)
-_register("1", {"": 1.0}, prefixable=False)
+_register("1", {"": 1.0, "%": 1e-2, "ppm": 1e-6}, prefixable=False)
 
 _NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 
