@@ -58,14 +58,22 @@ class Conditions:
     settling: bool = False  # the study bounds or maps the settling time: the search works it out
 
     @property
+    def applied(self) -> bool:
+        """The study states how the amplifier is used (a loop other than unity, a network, a settling spec):
+        its closed-loop testbench and figures exist."""
+        return self.beta < 1.0 or bool(np.isfinite(self.r_network)) or self.settling or self.step_v > 0
+
+    @property
     def r_output_load(self) -> float:
-        """What loads the output to the common-mode level: the load resistor and the network in parallel
-        (the amplifier's inputs draw no DC current, so the network is Rf + Rg from out to the reference)."""
+        """What loads the output to the common-mode level with the loop closed: the load resistor and the
+        network in parallel. Non-inverting, inn follows beta v(out), so Rf + Rg carries v(out) / (Rf + Rg);
+        inverting, inn is the virtual ground and the output drives Rf = (1 - beta) (Rf + Rg) alone."""
         if not np.isfinite(self.r_network):
             return self.r_load
+        network = (1.0 - self.beta) * self.r_network if self.inverting else self.r_network
         if not np.isfinite(self.r_load):
-            return self.r_network
-        return self.r_load * self.r_network / (self.r_load + self.r_network)
+            return network
+        return self.r_load * network / (self.r_load + network)
 
     def network_loaded(self) -> "Conditions":
         """These surroundings as the open-loop amplifier sees them: the network folded into the load (and

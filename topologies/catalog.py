@@ -79,8 +79,10 @@ _DECLARED = (
     # The application the study states (topologies/application.py): the closed loop at its beta.
     _m("gain_error", "1", "Static gain error", "min", "fixed", scale=100.0, display_unit="%", in_report=True,
        doc="1 - beta A_CL of the closed loop's DC solution; 1 / (1 + A0 beta) in the textbook form"),
-    _m("step_settling_s", "s", "Settling time (stated step and band)", "min", in_report=True,
+    _m("step_settling_s", "s", "Settling time", "min", in_report=True,
        doc="slewing, then linear settling from the closed loop's poles and residues"),
+    _m("step_slope_v_per_s", "V/s", "Steepest slope of the stated step", None, "fixed", scale=1e-6,
+       display_unit="V/µs", doc="the slew rate where the step slews, else the linear response's"),
     # Budgets.
     _m("power_w", "W", "Power", "min", in_report=True),
     _m("supply_current_a", "A", "Supply current", "min"),

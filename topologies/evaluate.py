@@ -76,6 +76,9 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
     # resistor: in the small-signal circuit, the load line and a class-AB stage's load current) and adds
     # its Thevenin resistance's thermal noise at the inverting input.
     r_noise = network_noise_resistance(cond.r_network, cond.beta)
+    # A settling spec or objective needs the step response of every design the search sees; the outputs
+    # (step=True) want it wherever the study states an application.
+    settles = cond.settling or (step and cond.applied)
     cond = cond.network_loaded()
     # Dead or off-table devices give inf/NaN for their designs only; the search reads those as violations.
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
@@ -89,10 +92,8 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         common, supply = small_signal(build, cond, "common_mode"), small_signal(build, cond, "supply")
         a_cm, a_dd = common.dc_gain("out"), supply.dc_gain("out")
         unsolved = circuit.quarantined | unloaded.quarantined | common.quarantined | supply.quarantined
-        # A settling spec or objective needs the step response of every design the search sees.
-        settle = ((build.metrics.get("slew_v_per_s"), cond.step_v, cond.settle_band) if cond.settling
-                  else None)
-        stability = _stability(circuit, common, loop, cond.beta, step, settle)
+        settle = (build.metrics.get("slew_v_per_s"), cond.step_v, cond.settle_band) if settles else None
+        stability = _stability(circuit, common, loop, cond.beta, step, settle, r_noise, cond.inverting)
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     designs = len(build.supply_current)
@@ -152,7 +153,7 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
 
 
 def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool,
-               settle=None) -> dict[str, np.ndarray]:
+               settle=None, r_source: float = 0.0, inverting: bool = False) -> dict[str, np.ndarray]:
     """Stability figures for the designs whose open loop is a working amplifier (finite gain, crossover and
     margin, no right-half-plane pole); the rest fail those constraints already and read NaN here. Each
     design's figures depend on its own circuit only, so the split changes no result."""
@@ -160,11 +161,13 @@ def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool,
                           & (loop.rhp_poles == 0))
     if loop.modal is None or len(rows) == len(loop.gain):
         eigen = (loop.modal.lam, loop.modal.vectors) if loop.modal is not None else None
-        return stability_from_circuits(circuit, common, beta, step=step, eigen=eigen, settle=settle)
+        return stability_from_circuits(circuit, common, beta, step=step, eigen=eigen, settle=settle,
+                                       r_source=r_source, inverting=inverting)
     if settle is not None:
         settle = (np.asarray(settle[0], float)[rows], *settle[1:])
     part = stability_from_circuits(circuit.subset(rows), common.subset(rows), beta, step=step,
-                                   eigen=(loop.modal.lam[rows], loop.modal.vectors[rows]), settle=settle)
+                                   eigen=(loop.modal.lam[rows], loop.modal.vectors[rows]), settle=settle,
+                                   r_source=r_source, inverting=inverting)
     full = {}
     for name, values in part.items():
         full[name] = np.full(len(loop.gain), np.nan)

@@ -39,9 +39,11 @@ Metrics (`stability_metrics`), arrays of shape (designs,), NaN for designs whose
                            dropped there (supply, corner, a lower beta); else 0
     gain_error             static gain error 1 - beta A_CL, A_CL the closed loop's own DC gain from inp (so
                            the input pair's common-mode feedthrough counts); 1 / (1 + A0 beta) in the
-                           textbook form (topologies/application.py)
+                           textbook form (topologies/application.py); inverting, 1 / (1 + T(0)) with the
+                           return ratio of the inn path the signal takes
     step_settling_s        (with `settle`) settling time of the study's output step to its error band, the
                            slew-limited large-step method below; inf when closed-loop unstable
+    step_slope_v_per_s     (with `settle`) that step's steepest output slope: the slew rate where it slews
 
 Large-step settling (`settle`): the two-phase method, slewing then linear settling (from memory of any
 analog design text). The linear loop asks for an output slope of at most V_step * s_max, s_max the largest
@@ -143,12 +145,27 @@ def _finite_poles(lam: np.ndarray) -> np.ndarray:
     return np.abs(lam) > INFINITE_POLE * scale
 
 
-def _loop_gain(differential: Circuit, g_n, c_n, beta: float, eigen=None):
-    """Return ratio T(jw) of the loop broken at inn, as a function of frequency (designs, F) -> complex."""
+def _loop_gain(differential: Circuit, g_n, c_n, beta: float, eigen=None, tau=None):
+    """Return ratio T(jw) of the loop broken at inn, as a function of frequency (designs, F) -> complex;
+    `tau` (s, per design): the feedback network's pole with the input capacitance (network_pole)."""
     n = len(differential.nodes)
     out = differential.nodes.index("out")
     modal = _Modal(differential.G[:, :n, :n], differential.C[:, :n, :n], g_n, c_n, out, eigen)
-    return modal, lambda f: -beta * modal.response(f)
+    if tau is None:
+        return modal, lambda f: -beta * modal.response(f)
+    return modal, lambda f: -beta * modal.response(f) * network_pole(f, tau)
+
+
+def network_pole(f, tau):
+    """1 / (1 + j 2 pi f tau) for frequencies f (F,) or (designs, F) and time constants tau (designs,)."""
+    return 1.0 / (1.0 + 2j * np.pi * np.asarray(f, float) * tau[:, None])
+
+
+def input_capacitance(g_n, c_n) -> np.ndarray:
+    """Capacitance from inn to the amplifier's internal nodes (F, per design): minus the sum of the inn
+    column's C part. The Miller multiplication of an input device's Cgd and its Cgb to the supply are left
+    out (topologies/application.py, known limits)."""
+    return np.maximum(-c_n.sum(axis=1), 0.0)
 
 
 def _phase_reading(response, t0: np.ndarray, f_lo: float, f_hi: float):
@@ -324,7 +341,8 @@ def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int, b
 def large_step_settling(closed: _Modal, finite: np.ndarray, stable: np.ndarray, slope: np.ndarray, slew,
                         step_v: float, band: float) -> np.ndarray:
     """Settling time (s) of an output step `step_v` (V) to `band` (fraction of the step) at slew rate `slew`
-    (V/s, one per design), slewing then linear (module doc); `slope` is the unit step's largest slope."""
+    (V/s, one per design), slewing then linear (module doc), and the step's largest slope (V/s: the slew
+    rate where it slews, else step_v s_max; NaN for a small step); `slope` is the unit step's s_max."""
     with np.errstate(divide="ignore", invalid="ignore"):
         v_lin = np.asarray(slew, float) / slope
         slewing = step_v > v_lin
@@ -332,21 +350,38 @@ def large_step_settling(closed: _Modal, finite: np.ndarray, stable: np.ndarray, 
         linear_band = band * np.where(slewing, step_v / v_lin, 1.0)
     linear_band = np.where(np.isfinite(linear_band) & (linear_band > 0), linear_band, band)
     _, t_linear, _ = _step(closed, finite, stable, linear_band)
-    return np.where(np.isfinite(v_lin) | (step_v == 0), t_slew + t_linear, np.nan)
+    settle = np.where(np.isfinite(v_lin) | (step_v == 0), t_slew + t_linear, np.nan)
+    steepest = np.fmin(np.asarray(slew, float), step_v * slope) if step_v > 0 else np.full(len(settle), np.nan)
+    return settle, steepest
 
 
-def closed_loop_matrices(differential: Circuit, common_mode: Circuit, beta: float = 1.0):
+def closed_loop_matrices(differential: Circuit, common_mode: Circuit, beta: float = 1.0, r_source: float = 0.0):
     """(G', C', g_p, c_p, out): the closed loop's nodal matrices (designs, n, n), the inp column it is
-    driven through, and the index of the output node."""
+    driven through, and the index of the output node.
+
+    `r_source` (Ohm): the feedback network's Thevenin resistance at inn (Rf || Rg). The feedback then
+    reaches inn through the pole of that resistance with the input capacitance, v(inn) (1 + s tau) =
+    beta v(out), tau = r_source C_in: one more unknown v(inn) with that row, and the inn column where the
+    amplifier sees it ((n + 1) x (n + 1) matrices; tau = 0 leaves an infinite pole)."""
     if not 0.0 < beta <= 1.0:
         raise ValueError(f"feedback factor beta must lie in (0, 1], got {beta}")
     n = len(differential.nodes)
     out = differential.nodes.index("out")
     g_n, c_n = inverting_column(differential, common_mode)
+    g_p, c_p = differential.G[:, :n, n].copy(), differential.C[:, :n, n].copy()
+    if r_source > 0:
+        designs = differential.designs
+        g, c = np.zeros((designs, n + 1, n + 1)), np.zeros((designs, n + 1, n + 1))
+        g[:, :n, :n], c[:, :n, :n] = differential.G[:, :n, :n], differential.C[:, :n, :n]
+        g[:, :n, n], c[:, :n, n] = g_n, c_n
+        g[:, n, n], g[:, n, out] = 1.0, -beta
+        c[:, n, n] = r_source * input_capacitance(g_n, c_n)
+        pad = np.zeros((designs, 1))
+        return g, c, np.concatenate([g_p, pad], axis=1), np.concatenate([c_p, pad], axis=1), out
     g, c = differential.G[:, :n, :n].copy(), differential.C[:, :n, :n].copy()
     g[:, :, out] += beta * g_n
     c[:, :, out] += beta * c_n
-    return g, c, differential.G[:, :n, n].copy(), differential.C[:, :n, n].copy(), out
+    return g, c, g_p, c_p, out
 
 
 def _sanitized(differential: Circuit, common_mode: Circuit):
@@ -365,11 +400,12 @@ def _sanitized(differential: Circuit, common_mode: Circuit):
     return differential, common_mode, broken
 
 
-def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float = 1.0) -> np.ndarray:
+def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float = 1.0,
+                      r_source: float = 0.0) -> np.ndarray:
     """Finite closed-loop poles in rad/s, (designs, n) complex; NaN for poles at infinity and for designs
     whose circuit is not finite."""
     differential, common_mode, broken = _sanitized(differential, common_mode)
-    g, c, _, _, _ = closed_loop_matrices(differential, common_mode, beta)
+    g, c, _, _, _ = closed_loop_matrices(differential, common_mode, beta, r_source)
     lam = np.linalg.eigvals(np.linalg.solve(g, c))
     finite = _finite_poles(lam) & ~broken[:, None]
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -378,16 +414,21 @@ def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float =
 
 def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: float = 1.0,
                             f_lo: float = 1e-3, f_hi: float = 1e11, step: bool = True,
-                            eigen=None, settle=None) -> dict[str, np.ndarray]:
+                            eigen=None, settle=None, r_source: float = 0.0,
+                            inverting: bool = False) -> dict[str, np.ndarray]:
     """The stability metrics from the evaluator's differential and common-mode circuits (see module doc).
 
     `step=False` skips the small-step response (overshoot and settling read NaN): the search judges
     stability on every design, the step response is worked out for the designs it keeps. `settle`:
-    (slew rates V/s per design, output step V, band) adds step_settling_s (and implies the step response)."""
+    (slew rates V/s per design, output step V, band) adds step_settling_s (and implies the step response).
+    `r_source`: the feedback network's Thevenin resistance at inn (closed_loop_matrices). `inverting`: the
+    signal reaches the loop through the network at inn, so the static gain error is 1 / (1 + T(0)) of the
+    inn path rather than the inp path's closed-loop gain."""
     designs = differential.designs
     differential, common_mode, broken = _sanitized(differential, common_mode)
-    g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta)
+    g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta, r_source)
     g_n, c_n = inverting_column(differential, common_mode)
+    tau = r_source * input_capacitance(g_n, c_n) if r_source > 0 else None
     with np.errstate(all="ignore"):
         closed = _Modal(g, c, g_p, c_p, out)
         finite = _finite_poles(closed.lam)
@@ -411,18 +452,21 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
             overshoot, settling = np.full(designs, np.nan), np.full(designs, np.nan)
         if settle is not None:
             slew, step_v, band = settle
-            large = large_step_settling(closed, finite, stable, slope, slew, step_v, band)
+            large, steepest = large_step_settling(closed, finite, stable, slope, slew, step_v, band)
             large[bad_closed] = np.nan
-        gain_error = 1.0 - beta * closed.dc.real
+        gain_error = 1.0 - beta * closed.dc.real if not inverting else None
 
-        opened, loop = _loop_gain(differential, g_n, c_n, beta, eigen)
+        opened, loop = _loop_gain(differential, g_n, c_n, beta, eigen, tau)
         bad_open = opened.checked(probe)
         t0 = -beta * opened.dc.real
+        if inverting:
+            gain_error = 1.0 / (1.0 + t0)
         crossover, margin, lowest = _phase_reading(loop, t0, f_lo, f_hi)
         if bad_open.any():
             rows = np.flatnonzero(bad_open)
             sub = _Modal(g=opened.g[rows], c=opened.c[rows], b0=opened.b0[rows], b1=opened.b1[rows], out=out)
-            redo = _phase_reading(lambda f: -beta * sub.direct(f), t0[rows], f_lo, f_hi)
+            pole = (lambda f: 1.0) if tau is None else (lambda f: network_pole(f, tau[rows]))
+            redo = _phase_reading(lambda f: -beta * sub.direct(f) * pole(f), t0[rows], f_lo, f_hi)
             for target, value in zip((crossover, margin, lowest), redo):
                 target[rows] = value
     # The step response has no direct-solve fallback: a near-defective closed loop (coincident poles to
@@ -442,7 +486,7 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         "loop_phase_min_deg": lowest,
         "conditionally_stable": conditional,
         "gain_error": gain_error,
-        **({"step_settling_s": large} if settle is not None else {}),
+        **({"step_settling_s": large, "step_slope_v_per_s": steepest} if settle is not None else {}),
     }
     for value in metrics.values():
         value[broken] = np.nan
