@@ -102,7 +102,7 @@ def loop_horizon(step_horizon_s: float, slew: float, cond: Conditions) -> float:
 
 
 # Tags the loop testbench prints besides metrics: what its data file is to be judged against.
-LOOP_STEP, LOOP_BAND, LOOP_START = "loop_step_v", "loop_settle_band", "loop_step_at_s"
+LOOP_STEP, LOOP_BAND, LOOP_START, LOOP_FALL = "loop_step_v", "loop_settle_band", "loop_step_at_s", "loop_fall_at_s"
 LOOP_POINTS = 6000
 
 
@@ -118,14 +118,17 @@ def loop_testbench(build: Build, i: int, tech: Technology, cond: Conditions, nam
       source Iinj into fb a current injection in the next, T_v = -v(fb) / v(inn),
       T_i = i(network) / i(amplifier), T = (T_v T_i - 1) / (T_v + T_i + 2), exact whatever the loading on
       either side of the break; its phase margin at the last unity crossing, referred to the nearest turn;
-    - the stated output step (centred on the common mode) in a transient whose v(out) goes to `data_file`,
-      from which the check reads the steepest slope and the settling time into the band."""
+    - the stated output step (centred on the common mode), up and after `horizon` down again, in a
+      transient whose v(out) goes to `data_file`, from which the check reads each edge's steepest slope and
+      settling time into the band: the slower edge is the one the model's figures (the smaller of the
+      source and sink slew rates) stand for."""
     if not (math.isfinite(horizon) and horizon > 0):
         raise NetlistError(f"loop horizon {horizon!r}")
     gain = ideal_gain(cond.beta, cond.inverting)
     step = cond.step_v if cond.step_v > 0 else STEP_V
     dt = horizon / LOOP_POINTS
-    t0, end = dt, horizon + dt
+    t0, fall = dt, horizon + dt
+    end = 2 * horizon + dt
     v_lo, v_hi = -0.5 * step / gain, 0.5 * step / gain   # input levels; the output steps by +step
     if np.isfinite(cond.r_network):
         r_f, r_g = network_resistors(cond.r_network, cond.beta)
@@ -144,7 +147,8 @@ def loop_testbench(build: Build, i: int, tech: Technology, cond: Conditions, nam
         f"Vsupply vdd 0 {cond.vdd:.6g}",
         "Vground vss 0 0",
         f"Vcm cm 0 {cond.v_cm:.6g}",
-        f"Vin {source} cm dc 0 pwl(0 {v_lo:.9g} {t0:.6g} {v_lo:.9g} {2 * t0:.6g} {v_hi:.9g})",
+        f"Vin {source} cm dc 0 pwl(0 {v_lo:.9g} {t0:.6g} {v_lo:.9g} {2 * t0:.6g} {v_hi:.9g} {fall:.6g} {v_hi:.9g} "
+        f"{fall + t0:.6g} {v_lo:.9g})",
         *drive,
         f"Xamp inp inn out vdd vss {name}",
         *network,
@@ -159,6 +163,7 @@ def loop_testbench(build: Build, i: int, tech: Technology, cond: Conditions, nam
         f"echo {tag} {LOOP_STEP} {step:.9g}",
         f"echo {tag} {LOOP_BAND} {cond.settle_band:.9g}",
         f"echo {tag} {LOOP_START} {t0:.9g}",
+        f"echo {tag} {LOOP_FALL} {fall:.9g}",
         f"tf v(out) vin",
         f"let gain_error = 1 - transfer_function / ({gain:.12g})",
         f"echo {tag} {M.gain_error} $&gain_error",
