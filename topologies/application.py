@@ -15,6 +15,11 @@ from memory of any analog design text:
                          noise gain 1 / beta; for the inverting configuration that is the amplifier's input,
                          not the signal source's)
 
+    output load          non-inverting, inn follows beta v(out): Rf + Rg to the reference; inverting, inn is
+                         the virtual ground: Rf alone (Conditions.r_output_load)
+    input pole           the feedback reaches inn through Rf || Rg and the input capacitance
+                         (stability.closed_loop_matrices)
+
 The gain error the model reports is not this formula but the closed loop's own DC solution
 (stability.py), which also carries the input pair's common-mode feedthrough; the formula is what a study's
 bound is turned into (`min_open_loop_gain`) and what the tests hold the solution to.
