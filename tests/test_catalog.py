@@ -21,7 +21,9 @@ from ampfront.topologies.catalog import (AGREEMENT, BOUNDS, CONDITIONS, METRICS,
 ROOT = Path(__file__).resolve().parents[1]
 # What a unit looks like once formatted: the quantity's own unit, never another's.
 SHOWN_UNIT = {"V": "V", "F": "F", "Ohm": "Ω", "dB": "dB", "Hz": "Hz", "deg": "°", "V/s": "V/µs", "W": "W",
-              "m^2": "µm²", "V/sqrt(Hz)": "V/√Hz", "A": "A", "m": "m"}
+              "m^2": "µm²", "V/sqrt(Hz)": "V/√Hz", "A": "A", "m": "m", "s": "s",
+              # Plain numbers (a gain in V/V, a fraction in %) and text (a configuration's name).
+              "1": "", "str": ""}
 
 
 def _readme_study() -> str:

@@ -14,11 +14,13 @@ import time
 import pandas as pd
 import pytest
 
+from ampfront.optimize.simulator.tasks import LOOP
 from ampfront.optimize.simulator.verdict import FIGURES
 
 from .clirun import TINY_STUDY, ampfront, one_line
 
-PER_DESIGN = sum(len(f) for f in FIGURES.values())
+# The tiny study states no application, so its designs have no closed-loop (_loop.sp) testbench.
+PER_DESIGN = sum(len(f) for bench, f in FIGURES.items() if bench != LOOP)
 
 
 @pytest.fixture(scope="module")

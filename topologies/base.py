@@ -47,6 +47,42 @@ class Conditions:
     beta: float = 1.0       # feedback factor the loop is closed at for the stability figures (unity gain)
     # Spot-noise limits: ((V/sqrt(Hz), Hz), ...), input-referred density at each frequency.
     noise_spots: tuple[tuple[float, float], ...] = ()
+    # The application (topologies/application.py): the feedback network's total resistance (Rf + Rg, from
+    # the output to the common-mode reference; inf when the study states no network), whether the signal
+    # drives the network (inverting) or inp, and the output step and error band the settling time is
+    # stated for (step_v = 0: a small step, no slewing).
+    r_network: float = np.inf
+    inverting: bool = False
+    step_v: float = 0.0
+    settle_band: float = 0.01
+    settling: bool = False  # the study bounds or maps the settling time: the search works it out
+
+    @property
+    def applied(self) -> bool:
+        """The study states how the amplifier is used (a loop other than unity, a network, a settling spec):
+        its closed-loop testbench and figures exist."""
+        return self.beta < 1.0 or bool(np.isfinite(self.r_network)) or self.settling or self.step_v > 0
+
+    @property
+    def r_output_load(self) -> float:
+        """What loads the output to the common-mode level with the loop closed: the load resistor and the
+        network in parallel. Non-inverting, inn follows beta v(out), so Rf + Rg carries v(out) / (Rf + Rg);
+        inverting, inn is the virtual ground and the output drives Rf = (1 - beta) (Rf + Rg) alone."""
+        if not np.isfinite(self.r_network):
+            return self.r_load
+        network = (1.0 - self.beta) * self.r_network if self.inverting else self.r_network
+        if not np.isfinite(self.r_load):
+            return network
+        return self.r_load * network / (self.r_load + network)
+
+    def network_loaded(self) -> "Conditions":
+        """These surroundings as the open-loop amplifier sees them: the network folded into the load (and
+        taken out of `r_network`, so folding twice changes nothing)."""
+        from dataclasses import replace
+
+        if not np.isfinite(self.r_network):
+            return self
+        return replace(self, r_load=self.r_output_load, r_network=np.inf)
 
     @property
     def out_level(self):

@@ -80,6 +80,13 @@ _DECLARED = (
     _m("loop_phase_min_deg", "deg", "Lowest loop phase above unity gain", "max", "fixed", display_unit="°"),
     _m("conditionally_stable", "1", "Conditionally stable", "min", "fixed", display_unit="",
        doc="stable, but the loop phase falls below -180 deg while the loop gain exceeds one"),
+    # The application the study states (topologies/application.py): the closed loop at its beta.
+    _m("gain_error", "1", "Static gain error", "min", "fixed", scale=100.0, display_unit="%", in_report=True,
+       doc="1 - beta A_CL of the closed loop's DC solution; 1 / (1 + A0 beta) in the textbook form"),
+    _m("step_settling_s", "s", "Settling time", "min", in_report=True,
+       doc="slewing, then linear settling from the closed loop's poles and residues"),
+    _m("step_slope_v_per_s", "V/s", "Steepest slope of the stated step", None, "fixed", scale=1e-6,
+       display_unit="V/µs", doc="the slew rate where the step slews, else the linear response's"),
     # Budgets.
     _m("power_w", "W", "Power", "min", in_report=True),
     _m("supply_current_a", "A", "Supply current", "min"),
@@ -172,6 +179,7 @@ OBJECTIVES: dict[str, Objective] = {o.name: o for o in (
     Objective("gbw", "gbw_hz", True),
     Objective("area", "area_m2", True),
     Objective("phase_margin", "phase_margin_deg", False),
+    Objective("settling", "step_settling_s", True),
 )}
 
 
@@ -222,6 +230,10 @@ BOUNDS: dict[str, Bound] = {b.key: b for b in (
     Bound("min_cmrr", "cmrr_db", "min", "dB", "minimum CMRR", 1.0),
     Bound("min_psrr", "psrr_db", "min", "dB", "minimum PSRR", 1.0),
     Bound("saturation_margin", "sat_min_v", "min", "V", "saturation margin on every device", 0.1),
+    # The application's bounds: the study also states closed_loop_gain or feedback_factor (a beta to judge
+    # them at). A gain error e asks A0 >= (1 - e) / (e beta) (topologies/application.py).
+    Bound("max_gain_error", "gain_error", "max", "1", "maximum static gain error", 1e-4),
+    Bound("max_settling_time", "step_settling_s", "max", "s", "maximum settling time"),
 )}
 
 
@@ -271,6 +283,8 @@ class Condition:
     unit: str           # shown unit ("eng" formatting)
     required: bool = False
     form: Literal["value", "range", "band"] = "value"
+    # How the value is shown: engineering prefix on `unit`, a fraction in percent, a plain number, as written.
+    shown: Literal["eng", "percent", "plain", "text"] = "eng"
 
 
 CONDITIONS: dict[str, Condition] = {c.key: c for c in (
@@ -279,6 +293,13 @@ CONDITIONS: dict[str, Condition] = {c.key: c for c in (
     Condition("load_resistance", "Ohm", "load resistance", "Ω"),
     Condition("input_cm", "V", "input common mode", "V", form="range"),
     Condition("noise_band", "Hz", "noise band", "Hz", form="band"),
+    # The application (topologies/application.py): a closed-loop gain in a configuration, or beta itself.
+    Condition("closed_loop_gain", "1", "closed-loop gain", "V/V", shown="plain"),
+    Condition("configuration", "str", "feedback configuration", "", shown="text"),
+    Condition("feedback_factor", "1", "feedback factor", "V/V", shown="plain"),
+    Condition("feedback_resistance", "Ohm", "feedback network resistance (Rf + Rg)", "Ω"),
+    Condition("step", "V", "output step", "V"),
+    Condition("settle_band", "1", "settling band", "%", shown="percent"),
 )}
 
 # Saturation headroom kept on every device unless the study says otherwise (common practice: 50-100 mV).
@@ -296,6 +317,12 @@ def format_spec(key: str, value) -> str:
     if key in BOUNDS:
         return METRICS[BOUNDS[key].metric].format(value)
     condition = CONDITIONS[key]
+    if condition.shown == "text":
+        return str(value).replace("_", "-")
+    if condition.shown == "percent":
+        return f"{100.0 * value:.3g} {condition.unit}"
+    if condition.shown == "plain":
+        return f"{value:.4g} {condition.unit}"
     if isinstance(value, (tuple, list)):
         low, high = value
         if low == high:

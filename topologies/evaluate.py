@@ -13,6 +13,7 @@ from .process.base import Technology
 from .kcl import node_imbalance
 from .noise import noise_metrics
 from .smallsignal import Circuit, loop_metrics
+from .application import network_noise_resistance
 from .stability import stability_from_circuits
 
 
@@ -71,19 +72,28 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
              step: bool = False):
     """Return (metrics, build): metrics maps names to arrays of shape (designs,). `step` adds the
     closed loop's small-step overshoot and settling time (the search leaves them out; outputs ask)."""
+    # The application's feedback network loads the output (Rf + Rg to the reference, beside the load
+    # resistor: in the small-signal circuit, the load line and a class-AB stage's load current) and adds
+    # its Thevenin resistance's thermal noise at the inverting input.
+    r_noise = network_noise_resistance(cond.r_network, cond.beta)
+    # A settling spec or objective needs the step response of every design the search sees; the outputs
+    # (step=True) want it wherever the study states an application.
+    settles = cond.settling or (step and cond.applied)
+    cond = cond.network_loaded()
     # Dead or off-table devices give inf/NaN for their designs only; the search reads those as violations.
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         build = topology.build(x, tech, cond)
         circuit = small_signal(build, cond)
         loop = loop_metrics(circuit, "out")
-        noise = noise_metrics(circuit, build, tech, loop.gain, cond.noise_band, cond.noise_spots)
+        noise = noise_metrics(circuit, build, tech, loop.gain, cond.noise_band, cond.noise_spots, r_noise)
         # Open-loop output resistance, inputs at AC ground, without the load resistor.
         unloaded = circuit if not np.isfinite(cond.r_load) else small_signal(build, replace(cond, r_load=np.inf))
         r_out = unloaded.transimpedance("out")("out")
         common, supply = small_signal(build, cond, "common_mode"), small_signal(build, cond, "supply")
         a_cm, a_dd = common.dc_gain("out"), supply.dc_gain("out")
         unsolved = circuit.quarantined | unloaded.quarantined | common.quarantined | supply.quarantined
-        stability = _stability(circuit, common, loop, cond.beta, step)
+        settle = (build.metrics.get("slew_v_per_s"), cond.step_v, cond.settle_band) if settles else None
+        stability = _stability(circuit, common, loop, cond.beta, step, settle, r_noise, cond.inverting)
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     designs = len(build.supply_current)
@@ -142,7 +152,8 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
     return metrics, build
 
 
-def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool) -> dict[str, np.ndarray]:
+def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool,
+               settle=None, r_source: float = 0.0, inverting: bool = False) -> dict[str, np.ndarray]:
     """Stability figures for the designs whose open loop is a working amplifier (finite gain, crossover and
     margin, no right-half-plane pole); the rest fail those constraints already and read NaN here. Each
     design's figures depend on its own circuit only, so the split changes no result."""
@@ -150,9 +161,13 @@ def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool)
                           & (loop.rhp_poles == 0))
     if loop.modal is None or len(rows) == len(loop.gain):
         eigen = (loop.modal.lam, loop.modal.vectors) if loop.modal is not None else None
-        return stability_from_circuits(circuit, common, beta, step=step, eigen=eigen)
+        return stability_from_circuits(circuit, common, beta, step=step, eigen=eigen, settle=settle,
+                                       r_source=r_source, inverting=inverting)
+    if settle is not None:
+        settle = (np.asarray(settle[0], float)[rows], *settle[1:])
     part = stability_from_circuits(circuit.subset(rows), common.subset(rows), beta, step=step,
-                                   eigen=(loop.modal.lam[rows], loop.modal.vectors[rows]))
+                                   eigen=(loop.modal.lam[rows], loop.modal.vectors[rows]), settle=settle,
+                                   r_source=r_source, inverting=inverting)
     full = {}
     for name, values in part.items():
         full[name] = np.full(len(loop.gain), np.nan)

@@ -29,11 +29,12 @@ def _band_integral(exponent: float, f1: float, f2: float) -> float:
 
 
 def noise_metrics(circuit: Circuit, build: Build, tech: Technology, gain, band: tuple[float, float],
-                  spots: tuple[tuple[float, float], ...] = ()):
+                  spots: tuple[tuple[float, float], ...] = (), r_input: float = 0.0):
     """Input-referred: white density, flicker density at 1 Hz (V/sqrt(Hz)), the 1/f corner (Hz) and the RMS
     noise over `band` (Hz), with S(f) = S_white + sum over polarities of S_flicker(1 Hz) / f^EF; with
     `spots` ((limit V/sqrt(Hz), frequency Hz), ...), the density at the spot that comes closest to its
-    limit and the ratio to that limit (<= 1 where every spot is met)."""
+    limit and the ratio to that limit (<= 1 where every spot is met). `r_input` (Ohm): a resistance in series
+    with the input whose thermal noise joins the white floor (a feedback network's Rf || Rg)."""
     to_out = circuit.transimpedance("out")
     kt4 = 4 * BOLTZMANN * tech.temperature
     g2 = np.asarray(gain, float) ** 2
@@ -47,6 +48,7 @@ def noise_metrics(circuit: Circuit, build: Build, tech: Technology, gain, band: 
         if e.kind == "R":
             white += kt4 / e.value * (to_out(e.a) - to_out(e.b)) ** 2
     white /= g2
+    white += kt4 * r_input
     exponents = {p: tech.flicker_exponent(p) for p in flicker}
     flicker = {p: f / g2 for p, f in flicker.items()}
 

@@ -37,6 +37,22 @@ Metrics (`stability_metrics`), arrays of shape (designs,), NaN for designs whose
     conditionally_stable   1 where the closed loop is stable although the loop phase falls below -180 deg
                            while |T| > 1 (below the crossover): it would go unstable if the loop gain
                            dropped there (supply, corner, a lower beta); else 0
+    gain_error             static gain error 1 - beta A_CL, A_CL the closed loop's own DC gain from inp (so
+                           the input pair's common-mode feedthrough counts); 1 / (1 + A0 beta) in the
+                           textbook form (topologies/application.py); inverting, 1 / (1 + T(0)) with the
+                           return ratio of the inn path the signal takes
+    step_settling_s        (with `settle`) settling time of the study's output step to its error band, the
+                           slew-limited large-step method below; inf when closed-loop unstable
+    step_slope_v_per_s     (with `settle`) that step's steepest output slope: the slew rate where it slews
+
+Large-step settling (`settle`): the two-phase method, slewing then linear settling (from memory of any
+analog design text). The linear loop asks for an output slope of at most V_step * s_max, s_max the largest
+slope of its unit step response (from the poles and residues); beyond the slew rate SR the output slews.
+The largest step the loop follows linearly is V_lin = SR / s_max (SR tau for one pole). A larger step slews
+for (V_step - V_lin) / SR, then settles linearly from the remaining V_lin: the small-signal response must
+reach band * V_step, a band of band * V_step / V_lin in its own terms. t = t_slew + t_linear. The step is
+taken at inp (the non-inverting response); the inverting configuration has the same poles and is read the
+same way.
 """
 
 from __future__ import annotations
@@ -129,12 +145,27 @@ def _finite_poles(lam: np.ndarray) -> np.ndarray:
     return np.abs(lam) > INFINITE_POLE * scale
 
 
-def _loop_gain(differential: Circuit, g_n, c_n, beta: float, eigen=None):
-    """Return ratio T(jw) of the loop broken at inn, as a function of frequency (designs, F) -> complex."""
+def _loop_gain(differential: Circuit, g_n, c_n, beta: float, eigen=None, tau=None):
+    """Return ratio T(jw) of the loop broken at inn, as a function of frequency (designs, F) -> complex;
+    `tau` (s, per design): the feedback network's pole with the input capacitance (network_pole)."""
     n = len(differential.nodes)
     out = differential.nodes.index("out")
     modal = _Modal(differential.G[:, :n, :n], differential.C[:, :n, :n], g_n, c_n, out, eigen)
-    return modal, lambda f: -beta * modal.response(f)
+    if tau is None:
+        return modal, lambda f: -beta * modal.response(f)
+    return modal, lambda f: -beta * modal.response(f) * network_pole(f, tau)
+
+
+def network_pole(f, tau):
+    """1 / (1 + j 2 pi f tau) for frequencies f (F,) or (designs, F) and time constants tau (designs,)."""
+    return 1.0 / (1.0 + 2j * np.pi * np.asarray(f, float) * tau[:, None])
+
+
+def input_capacitance(g_n, c_n) -> np.ndarray:
+    """Capacitance from inn to the amplifier's internal nodes (F, per design): minus the sum of the inn
+    column's C part. The Miller multiplication of an input device's Cgd and its Cgb to the supply are left
+    out (topologies/application.py, known limits)."""
+    return np.maximum(-c_n.sum(axis=1), 0.0)
 
 
 def _phase_reading(response, t0: np.ndarray, f_lo: float, f_hi: float):
@@ -202,8 +233,10 @@ def _phase_reading(response, t0: np.ndarray, f_lo: float, f_hi: float):
     return (np.where(has_cross, f_c, 0.0), np.where(has_cross, margin, np.nan), lowest)
 
 
-def _step(modal: _Modal, finite: np.ndarray, stable: np.ndarray):
-    """Overshoot (%) and settling time (s) of the closed loop's response to a unit step at inp.
+def _step(modal: _Modal, finite: np.ndarray, stable: np.ndarray, band=SETTLE_BAND):
+    """Overshoot (%), settling time (s) to `band` (a fraction of the final value, one per design or one
+    for all) and the largest slope (1/s, per unit of final value) of the closed loop's response to a unit
+    step at inp.
 
     From the modal form, y(t) = sum_i r0_i + sum_i c_i exp(p_i t) with p_i = -1/lam_i and
     c_i = r1_i / lam_i - r0_i (infinite poles contribute their r0 step and an impulse at t = 0 only).
@@ -222,10 +255,13 @@ def _step(modal: _Modal, finite: np.ndarray, stable: np.ndarray):
     significant = finite & (rel > NEGLIGIBLE_MODE)
     decay = np.where(significant, -p.real, 1.0)
     ringing = significant & (np.abs(p.imag) > 1e-9 * np.abs(p))
+    band = np.broadcast_to(np.asarray(band, float), final.shape)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        t_end = np.where(significant, np.log(np.maximum(rel, 1.0) / 1e-4) / decay, -np.inf).max(axis=1)
+        # Decayed to 1e-4 of the final value, or to a tenth of a tighter band.
+        floor = np.minimum(1e-4, 0.1 * band)[:, None]
+        t_end = np.where(significant, np.log(np.maximum(rel, 1.0) / floor) / decay, -np.inf).max(axis=1)
         t_start = 1e-3 / np.where(significant, np.abs(p), -np.inf).max(axis=1)
-        t_ring = np.where(ringing, np.log(np.maximum(rel / (0.1 * SETTLE_BAND), 1.0)) / decay, 0.0).max(axis=1)
+        t_ring = np.where(ringing, np.log(np.maximum(rel / (0.1 * band[:, None]), 1.0)) / decay, 0.0).max(axis=1)
         f_ring = np.where(ringing, np.abs(p.imag), 0.0).max(axis=1) / (2 * np.pi)
     ok = stable & np.isfinite(t_end) & np.isfinite(t_start) & (t_end > t_start)
     t_start, t_end = np.where(ok, t_start, 1.0), np.where(ok, t_end, 10.0)
@@ -237,18 +273,20 @@ def _step(modal: _Modal, finite: np.ndarray, stable: np.ndarray):
     group = 2 ** np.ceil(np.log2(need)).astype(int)
     overshoot = np.full(len(final), np.inf)
     settling = np.full(len(final), np.inf)
+    slope = np.full(len(final), np.nan)
     for points in np.unique(group):
         rows = np.flatnonzero(group == points)
-        o, t = _sampled_step(p[rows], c[rows], final[rows], scale[rows], t_start[rows], t_end[rows],
-                             t_ring[rows], int(points))
-        overshoot[rows], settling[rows] = o, t
+        o, t, k = _sampled_step(p[rows], c[rows], final[rows], scale[rows], t_start[rows], t_end[rows],
+                                t_ring[rows], int(points), band[rows])
+        overshoot[rows], settling[rows], slope[rows] = o, t, k
     overshoot = np.where(ok, overshoot, np.inf)
     settling = np.where(ok, settling, np.inf)
-    return overshoot, settling
+    return overshoot, settling, np.where(ok, slope, np.nan)
 
 
-def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int):
-    """Overshoot and settling of y(t) = final + sum_i c_i exp(p_i t) on the grids `_step` describes."""
+def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int, band):
+    """Overshoot, settling and largest slope of y(t) = final + sum_i c_i exp(p_i t) on the grids `_step`
+    describes."""
     # Only the modes that matter to some design of the group are summed.
     keep = (np.abs(c) > NEGLIGIBLE_MODE * scale[:, None]).any(axis=0)
     p, c = p[:, keep], c[:, keep]
@@ -271,6 +309,11 @@ def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int):
 
     err = error(times)
     rows = np.arange(len(final))
+    rate = np.zeros(times.shape)
+    for j in range(c.shape[1]):
+        rate += (c[:, j, None] * p[:, j, None] * np.exp(p[:, j, None] * times)).real
+    # The slope at the first sample stands for t = 0+, where a lone pole's slope is largest.
+    slope = (rate * (sign / scale)[:, None]).max(axis=1)
     k = np.argmax(err, axis=1)
     a = times[rows, np.maximum(k - 1, 0)]
     b = times[rows, np.minimum(k + 1, size - 1)]
@@ -282,31 +325,63 @@ def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int):
     peak = np.fmax(err[rows, k], error((0.5 * (a + b))[:, None])[:, 0])
     overshoot = 100.0 * np.maximum(peak, 0.0)
 
-    outside = np.abs(err) > SETTLE_BAND
+    outside = np.abs(err) > band[:, None]
     last = size - 1 - np.argmax(outside[:, ::-1], axis=1)
     never = ~outside.any(axis=1)
     lo = times[rows, last]
     hi = times[rows, np.minimum(last + 1, size - 1)]
     for _ in range(40):
         mid = 0.5 * (lo + hi)
-        out_band = np.abs(error(mid[:, None])[:, 0]) > SETTLE_BAND
+        out_band = np.abs(error(mid[:, None])[:, 0]) > band
         lo, hi = np.where(out_band, mid, lo), np.where(out_band, hi, mid)
     settling = np.where(never, 0.0, np.where(last >= size - 1, np.inf, hi))
-    return overshoot, settling
+    return overshoot, settling, slope
 
 
-def closed_loop_matrices(differential: Circuit, common_mode: Circuit, beta: float = 1.0):
+def large_step_settling(closed: _Modal, finite: np.ndarray, stable: np.ndarray, slope: np.ndarray, slew,
+                        step_v: float, band: float) -> np.ndarray:
+    """Settling time (s) of an output step `step_v` (V) to `band` (fraction of the step) at slew rate `slew`
+    (V/s, one per design), slewing then linear (module doc), and the step's largest slope (V/s: the slew
+    rate where it slews, else step_v s_max; NaN for a small step); `slope` is the unit step's s_max."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        v_lin = np.asarray(slew, float) / slope
+        slewing = step_v > v_lin
+        t_slew = np.where(slewing, (step_v - v_lin) / slew, 0.0)
+        linear_band = band * np.where(slewing, step_v / v_lin, 1.0)
+    linear_band = np.where(np.isfinite(linear_band) & (linear_band > 0), linear_band, band)
+    _, t_linear, _ = _step(closed, finite, stable, linear_band)
+    settle = np.where(np.isfinite(v_lin) | (step_v == 0), t_slew + t_linear, np.nan)
+    steepest = np.fmin(np.asarray(slew, float), step_v * slope) if step_v > 0 else np.full(len(settle), np.nan)
+    return settle, steepest
+
+
+def closed_loop_matrices(differential: Circuit, common_mode: Circuit, beta: float = 1.0, r_source: float = 0.0):
     """(G', C', g_p, c_p, out): the closed loop's nodal matrices (designs, n, n), the inp column it is
-    driven through, and the index of the output node."""
+    driven through, and the index of the output node.
+
+    `r_source` (Ohm): the feedback network's Thevenin resistance at inn (Rf || Rg). The feedback then
+    reaches inn through the pole of that resistance with the input capacitance, v(inn) (1 + s tau) =
+    beta v(out), tau = r_source C_in: one more unknown v(inn) with that row, and the inn column where the
+    amplifier sees it ((n + 1) x (n + 1) matrices; tau = 0 leaves an infinite pole)."""
     if not 0.0 < beta <= 1.0:
         raise ValueError(f"feedback factor beta must lie in (0, 1], got {beta}")
     n = len(differential.nodes)
     out = differential.nodes.index("out")
     g_n, c_n = inverting_column(differential, common_mode)
+    g_p, c_p = differential.G[:, :n, n].copy(), differential.C[:, :n, n].copy()
+    if r_source > 0:
+        designs = differential.designs
+        g, c = np.zeros((designs, n + 1, n + 1)), np.zeros((designs, n + 1, n + 1))
+        g[:, :n, :n], c[:, :n, :n] = differential.G[:, :n, :n], differential.C[:, :n, :n]
+        g[:, :n, n], c[:, :n, n] = g_n, c_n
+        g[:, n, n], g[:, n, out] = 1.0, -beta
+        c[:, n, n] = r_source * input_capacitance(g_n, c_n)
+        pad = np.zeros((designs, 1))
+        return g, c, np.concatenate([g_p, pad], axis=1), np.concatenate([c_p, pad], axis=1), out
     g, c = differential.G[:, :n, :n].copy(), differential.C[:, :n, :n].copy()
     g[:, :, out] += beta * g_n
     c[:, :, out] += beta * c_n
-    return g, c, differential.G[:, :n, n].copy(), differential.C[:, :n, n].copy(), out
+    return g, c, g_p, c_p, out
 
 
 def _sanitized(differential: Circuit, common_mode: Circuit):
@@ -325,11 +400,12 @@ def _sanitized(differential: Circuit, common_mode: Circuit):
     return differential, common_mode, broken
 
 
-def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float = 1.0) -> np.ndarray:
+def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float = 1.0,
+                      r_source: float = 0.0) -> np.ndarray:
     """Finite closed-loop poles in rad/s, (designs, n) complex; NaN for poles at infinity and for designs
     whose circuit is not finite."""
     differential, common_mode, broken = _sanitized(differential, common_mode)
-    g, c, _, _, _ = closed_loop_matrices(differential, common_mode, beta)
+    g, c, _, _, _ = closed_loop_matrices(differential, common_mode, beta, r_source)
     lam = np.linalg.eigvals(np.linalg.solve(g, c))
     finite = _finite_poles(lam) & ~broken[:, None]
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -338,15 +414,21 @@ def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float =
 
 def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: float = 1.0,
                             f_lo: float = 1e-3, f_hi: float = 1e11, step: bool = True,
-                            eigen=None) -> dict[str, np.ndarray]:
+                            eigen=None, settle=None, r_source: float = 0.0,
+                            inverting: bool = False) -> dict[str, np.ndarray]:
     """The stability metrics from the evaluator's differential and common-mode circuits (see module doc).
 
     `step=False` skips the small-step response (overshoot and settling read NaN): the search judges
-    stability on every design, the step response is worked out for the designs it keeps."""
+    stability on every design, the step response is worked out for the designs it keeps. `settle`:
+    (slew rates V/s per design, output step V, band) adds step_settling_s (and implies the step response).
+    `r_source`: the feedback network's Thevenin resistance at inn (closed_loop_matrices). `inverting`: the
+    signal reaches the loop through the network at inn, so the static gain error is 1 / (1 + T(0)) of the
+    inn path rather than the inp path's closed-loop gain."""
     designs = differential.designs
     differential, common_mode, broken = _sanitized(differential, common_mode)
-    g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta)
+    g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta, r_source)
     g_n, c_n = inverting_column(differential, common_mode)
+    tau = r_source * input_capacitance(g_n, c_n) if r_source > 0 else None
     with np.errstate(all="ignore"):
         closed = _Modal(g, c, g_p, c_p, out)
         finite = _finite_poles(closed.lam)
@@ -364,19 +446,27 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         # Probe the modal forms where they matter: at the dominant closed-loop pole's frequency.
         probe = np.where(pole_hz > 0, pole_hz, 1.0)[:, None] * np.array([0.5, 1.0, 2.0])
         bad_closed = closed.checked(probe)
-        if step:
-            overshoot, settling = _step(closed, finite, stable)
+        if step or settle is not None:
+            overshoot, settling, slope = _step(closed, finite, stable)
         else:
             overshoot, settling = np.full(designs, np.nan), np.full(designs, np.nan)
+        if settle is not None:
+            slew, step_v, band = settle
+            large, steepest = large_step_settling(closed, finite, stable, slope, slew, step_v, band)
+            large[bad_closed] = np.nan
+        gain_error = 1.0 - beta * closed.dc.real if not inverting else None
 
-        opened, loop = _loop_gain(differential, g_n, c_n, beta, eigen)
+        opened, loop = _loop_gain(differential, g_n, c_n, beta, eigen, tau)
         bad_open = opened.checked(probe)
         t0 = -beta * opened.dc.real
+        if inverting:
+            gain_error = 1.0 / (1.0 + t0)
         crossover, margin, lowest = _phase_reading(loop, t0, f_lo, f_hi)
         if bad_open.any():
             rows = np.flatnonzero(bad_open)
             sub = _Modal(g=opened.g[rows], c=opened.c[rows], b0=opened.b0[rows], b1=opened.b1[rows], out=out)
-            redo = _phase_reading(lambda f: -beta * sub.direct(f), t0[rows], f_lo, f_hi)
+            pole = (lambda f: 1.0) if tau is None else (lambda f: network_pole(f, tau[rows]))
+            redo = _phase_reading(lambda f: -beta * sub.direct(f) * pole(f), t0[rows], f_lo, f_hi)
             for target, value in zip((crossover, margin, lowest), redo):
                 target[rows] = value
     # The step response has no direct-solve fallback: a near-defective closed loop (coincident poles to
@@ -395,6 +485,8 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         "loop_phase_margin_deg": margin,
         "loop_phase_min_deg": lowest,
         "conditionally_stable": conditional,
+        "gain_error": gain_error,
+        **({"step_settling_s": large, "step_slope_v_per_s": steepest} if settle is not None else {}),
     }
     for value in metrics.values():
         value[broken] = np.nan

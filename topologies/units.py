@@ -48,8 +48,7 @@ _register("m^2", {"m^2": 1.0, "um^2": 1e-12, "µm^2": 1e-12}, prefixable=False)
 _register("V*m", {"V*m": 1.0, "mV*um": 1e-9, "mV*µm": 1e-9}, prefixable=False)
 _register("V^2/Hz", {"V^2/Hz": 1.0}, prefixable=True)
 _register("V/sqrt(Hz)", {"V/sqrt(Hz)": 1.0, "V/rtHz": 1.0}, prefixable=True)
-_register("1", {"": 1.0}, prefixable=False)
-_register("%", {"%": 0.01}, prefixable=False)
+_register("1", {"": 1.0, "%": 1e-2, "ppm": 1e-6}, prefixable=False)
 
 _NUMBER = re.compile(r"^\s*([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(.*?)\s*$")
 
@@ -57,7 +56,7 @@ DIMENSION_EXAMPLES = {
     "V": "1.8 V", "A": "20 uA", "W": "450 uW", "F": "2 pF", "Ohm": "10 kOhm", "Hz": "10 MHz",
     "m": "0.5 um", "s": "1 us", "V/s": "5 V/us", "dB": "70 dB", "deg": "60 deg", "degC": "27 degC",
     "A/V^2": "270 uA/V^2", "F/m^2": "1 fF/um^2", "F/m": "0.35 fF/um", "m/V": "0.08 um/V",
-    "V^0.5": "0.45 V^0.5", "m^2": "4 um^2", "V*m": "5 mV*um", "1": "0.8", "%": "10 %",
+    "V^0.5": "0.45 V^0.5", "m^2": "4 um^2", "V*m": "5 mV*um", "1": "0.8",
 }
 
 

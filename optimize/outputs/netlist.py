@@ -11,6 +11,7 @@ import re
 
 import numpy as np
 
+from ampfront.topologies.application import ideal_gain, network_noise_resistance, network_resistors
 from ampfront.topologies.base import PORTS, Build, Conditions
 from ampfront.topologies.catalog import M
 from ampfront.topologies.process.base import Technology
@@ -69,18 +70,126 @@ def design_files(build: Build, i: int, tech: Technology, cond: Conditions, desig
                  horizon: float) -> dict[str, str]:
     """Every file of one design, by name: its subcircuit (operating point as comments), its open-loop
     testbench, its output-swing testbench and its closed-loop small-step testbench (`horizon`, s: how long
-    the step response is simulated). `ampfront run` writes these; `ampfront check` rebuilds them and runs
-    only what it rebuilt."""
+    the step response is simulated), and where the study states an application its closed-loop testbench.
+    `ampfront run` writes these; `ampfront check` rebuilds them and runs only what it
+    rebuilt. The open-loop, swing and step testbenches see a feedback network as a load on the output,
+    as the model does (Conditions.network_loaded); the loop testbench draws it."""
     from ampfront.optimize.outputs.tables import device_table
 
     op = "\n".join("* " + _comment(line) for line in device_table(build, i).to_string(index=False).splitlines())
     sub = f"{design}.sp"
-    return {
+    loaded = cond.network_loaded()
+    files = {
         sub: subckt(build, i, tech, design, title, op),
-        f"{design}_tb.sp": testbench(build, i, tech, cond, design, sub),
-        f"{design}_swing.sp": swing_testbench(build, i, tech, cond, design, sub, f"{design}_swing.dat"),
-        f"{design}_step.sp": step_testbench(build, i, tech, cond, design, sub, horizon),
+        f"{design}_tb.sp": testbench(build, i, tech, loaded, design, sub,
+                                     network_noise_resistance(cond.r_network, cond.beta)),
+        f"{design}_swing.sp": swing_testbench(build, i, tech, loaded, design, sub, f"{design}_swing.dat"),
+        f"{design}_step.sp": step_testbench(build, i, tech, loaded, design, sub, horizon),
     }
+    if cond.applied:
+        slew = _at(build.metrics.get(M.slew_v_per_s, np.inf), i)
+        files[f"{design}_loop.sp"] = loop_testbench(build, i, tech, cond, design, sub, f"{design}_loop.dat",
+                                                    loop_horizon(horizon, slew, cond))
+    return files
+
+
+def loop_horizon(step_horizon_s: float, slew: float, cond: Conditions) -> float:
+    """How long to simulate the stated step, from what the run and the check both have: twice the slewing
+    time, plus the small-step horizon (three 1 % settling times at the same beta) stretched for a tighter
+    band (linear settling time grows as ln(1 / band))."""
+    stretch = max(1.0, math.log(1.0 / cond.settle_band) / math.log(100.0))
+    return 2.0 * cond.step_v / slew + 1.5 * stretch * step_horizon_s
+
+
+# Tags the loop testbench prints besides metrics: what its data file is to be judged against.
+LOOP_STEP, LOOP_BAND, LOOP_START, LOOP_FALL = "loop_step_v", "loop_settle_band", "loop_step_at_s", "loop_fall_at_s"
+LOOP_POINTS = 6000
+
+
+def loop_testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: str, subckt_file: str,
+                   data_file: str, horizon: float) -> str:
+    """The amplifier in its application: the stated network (Rf from out to the junction fb, Rg from fb to
+    the reference, or to the signal when inverting; without a stated resistance, controlled sources that
+    set v(fb) = beta v(out) + (1 - beta) v(signal)), the load, and
+
+    - the static gain error, 1 - A_CL / G_ideal, from the small-signal DC transfer (.tf) of the closed loop;
+    - the loop gain at the inverting input by Middlebrook's double injection (from memory of his 1975
+      method): a 0 V source Vinj between fb and inn carries a voltage injection in one AC run and a current
+      source Iinj into fb a current injection in the next, T_v = -v(fb) / v(inn),
+      T_i = i(network) / i(amplifier), T = (T_v T_i - 1) / (T_v + T_i + 2), exact whatever the loading on
+      either side of the break; its phase margin at the last unity crossing, referred to the nearest turn;
+    - the stated output step (centred on the common mode), up and after `horizon` down again, in a
+      transient whose v(out) goes to `data_file`, from which the check reads each edge's steepest slope and
+      settling time into the band: the slower edge is the one the model's figures (the smaller of the
+      source and sink slew rates) stand for."""
+    if not (math.isfinite(horizon) and horizon > 0):
+        raise NetlistError(f"loop horizon {horizon!r}")
+    gain = ideal_gain(cond.beta, cond.inverting)
+    step = cond.step_v if cond.step_v > 0 else STEP_V
+    dt = horizon / LOOP_POINTS
+    t0, fall = dt, horizon + dt
+    end = 2 * horizon + dt
+    v_lo, v_hi = -0.5 * step / gain, 0.5 * step / gain   # input levels; the output steps by +step
+    if np.isfinite(cond.r_network):
+        r_f, r_g = network_resistors(cond.r_network, cond.beta)
+        network = [f"Rf out fb {r_f:.6g}", f"Rg fb {'sig' if cond.inverting else 'cm'} {r_g:.6g}"]
+    else:
+        network = [f"Efb_out fb mid out cm {cond.beta:.12g}", f"Efb_sig mid cm sig cm {1 - cond.beta:.12g}"]
+    drive = ["Vpos inp cm 0"] if cond.inverting else ["Vsig sig cm 0"]
+    source = "sig" if cond.inverting else "inp"
+    tag = RESULT_TAG
+    return "\n".join([
+        f"* ampfront closed-loop application testbench for {name}: gain {gain:.6g}, feedback factor "
+        f"{cond.beta:.6g}, {'inverting' if cond.inverting else 'non-inverting'}",
+        *model_lines(build, i, tech),
+        f".include {subckt_file}",
+        f".temp {tech.temperature - 273.15:g}",
+        f"Vsupply vdd 0 {cond.vdd:.6g}",
+        "Vground vss 0 0",
+        f"Vcm cm 0 {cond.v_cm:.6g}",
+        f"Vin {source} cm dc 0 pwl(0 {v_lo:.9g} {t0:.6g} {v_lo:.9g} {2 * t0:.6g} {v_hi:.9g} {fall:.6g} {v_hi:.9g} "
+        f"{fall + t0:.6g} {v_lo:.9g})",
+        *drive,
+        f"Xamp inp inn out vdd vss {name}",
+        *network,
+        # The break for the loop gain: 0 V and 0 A at DC and in the transient, so the loop stays closed.
+        "Vinj inn fb dc 0 ac 0",
+        "Iinj 0 fb dc 0 ac 0",
+        f"Cload out 0 {cond.c_load:.6g}",
+        _load(cond),
+        ".options reltol=1e-5 abstol=1e-14 vntol=1e-8 method=gear",
+        ".control",
+        "set noaskquit",
+        f"echo {tag} {LOOP_STEP} {step:.9g}",
+        f"echo {tag} {LOOP_BAND} {cond.settle_band:.9g}",
+        f"echo {tag} {LOOP_START} {t0:.9g}",
+        f"echo {tag} {LOOP_FALL} {fall:.9g}",
+        f"tf v(out) vin",
+        f"let gain_error = 1 - transfer_function / ({gain:.12g})",
+        f"echo {tag} {M.gain_error} $&gain_error",
+        "alter vinj ac = 1",
+        "ac dec 40 1 1e12",
+        "let tv = -v(fb) / v(inn)",
+        "alter vinj ac = 0",
+        "alter iinj ac = 1",
+        "ac dec 40 1 1e12",
+        "let i_amp = -i(vinj)",
+        "let ti = (1 - i_amp) / i_amp",
+        "let tloop = (ac1.tv * ti - 1) / (ac1.tv + ti + 2)",
+        "let tloop_db = db(tloop)",
+        "let tloop_ph = 180 / pi * cph(tloop)",
+        "meas ac f_cross when tloop_db=0 fall=LAST",
+        "meas ac ph_cross find tloop_ph at=f_cross",
+        "let pm_raw = 180 + ph_cross",
+        "let loop_pm = pm_raw - 360 * floor((pm_raw + 180) / 360)",
+        f"echo {tag} {M.loop_phase_margin_deg} $&loop_pm",
+        f"tran {dt:.6g} {end:.6g} 0 {dt:.6g}",
+        f"wrdata {data_file} v(out)",
+        "quit 0",
+        ".endc",
+        ".end",
+        "",
+    ])
 
 
 # Small enough that every device stays in its small-signal range (the step response is the closed loop's
@@ -151,9 +260,12 @@ def _load(cond: Conditions) -> str:
     return f"Rload out term {cond.r_load:.6g}\nVterm term 0 {cond.v_cm:.6g}"
 
 
-def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: str, subckt_file: str) -> str:
+def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: str, subckt_file: str,
+              r_network_noise: float = 0.0) -> str:
     """Open-loop testbench: DC loop closed through a large inductor (unity-gain follower at DC), the
-    inverting input held at AC ground by a large capacitor, an AC source on the non-inverting input."""
+    inverting input held at AC ground by a large capacitor, an AC source on the non-inverting input.
+    `r_network_noise` (Ohm): a feedback network's Rf || Rg, in series with the input for the noise run
+    only (1 mOhm for the AC runs, so its pole with the input capacitance moves no gain or phase)."""
     rl = _load(cond)
     tag = RESULT_TAG
     return "\n".join([
@@ -164,7 +276,7 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         f"Vsupply vdd 0 {cond.vdd:.6g}",
         "Vground vss 0 0",
         f"Vcm cm 0 {cond.v_cm:.6g}",
-        "Vin inp cm dc 0 ac 1",
+        *(["Vin src cm dc 0 ac 1", "Rnetwork src inp 1e-3"] if r_network_noise > 0 else ["Vin inp cm dc 0 ac 1"]),
         f"Xamp inp inn out vdd vss {name}",
         # 1 TH: at the 0.1 Hz gain point it is 600 GOhm, far above any output resistance it would load.
         "Lloop out inn 1e12",
@@ -193,6 +305,7 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         f"echo {tag} {M.phase_margin_deg} $&phase_margin",
         # Input-referred noise density at 1 Hz (flicker) and 100 Hz (index 10 of a 5-per-decade sweep): with
         # the DC loop closed only through the inductor this is the open-loop amplifier's own noise.
+        *([f"alter rnetwork = {r_network_noise:.6g}"] if r_network_noise > 0 else []),
         "noise v(out) vin dec 5 1 100",
         "setplot noise1",
         "let noise_1hz = inoise_spectrum[0]",  # ngspice reports V/sqrt(Hz)

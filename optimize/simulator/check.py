@@ -27,7 +27,7 @@ from ampfront.optimize.simulator import cluster, verdict
 from ampfront.optimize.simulator.ledger import Ledger
 from ampfront.optimize.simulator.ngspice import DEFAULT_TIMEOUT_S
 from ampfront.optimize.simulator.selection import choose
-from ampfront.optimize.simulator.tasks import OPEN_LOOP, STEP, SUFFIX, SWING, Task, make_task
+from ampfront.optimize.simulator.tasks import LOOP, OPEN_LOOP, STEP, SUFFIX, SWING, Task, make_task
 from ampfront.optimize.simulator.verdict import (AGREES, FIGURES, REJECTION_CEILING_DB, SWING_SHORTFALL_V,
                                                  SWING_SLACK_V)
 from ampfront.optimize.spec.study import Study, load_study
@@ -168,11 +168,13 @@ def plan(received: Received, picks: pd.DataFrame, timeout: float) -> tuple[list[
             except NetlistError as error:
                 unbuilt += [{"design": design, "corner": CORNER, "metric": metric, "model": model.get(metric),
                              "status": NOT_REBUILT, "topology": name, "testbench": bench, "reason": str(error)}
-                            for bench, figures in FIGURES.items() for metric in figures]
+                            for bench, figures in FIGURES.items() for metric in figures
+                            if bench != LOOP or study.conditions.applied]
                 continue
             _refuse_changed(received.folder, files)
             sub = f"{design}.sp"
-            for bench in (OPEN_LOOP, SWING, STEP):
+            # The application's testbench only where the study states one (design_files writes it then).
+            for bench in (b for b in (OPEN_LOOP, SWING, STEP, LOOP) if f"{design}{SUFFIX[b]}" in files):
                 deck = f"{design}{SUFFIX[bench]}"
                 task = make_task(design, bench, {deck: files[deck], sub: files[sub]}, init,
                                  study.conditions.v_cm, timeout, CORNER)

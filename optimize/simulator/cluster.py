@@ -14,7 +14,7 @@ import logging
 import os
 from collections.abc import Iterable, Iterator
 
-from ampfront.optimize.simulator.tasks import OPEN_LOOP, STEP, SWING, Outcome, Task, run_task
+from ampfront.optimize.simulator.tasks import LOOP, OPEN_LOOP, STEP, SWING, Outcome, Task, run_task
 
 WORKER_LOST = "worker lost"
 # For a task that raised on its worker (it should not: run_task turns every simulation failure into an
@@ -22,7 +22,7 @@ WORKER_LOST = "worker lost"
 RETRIES = 2
 # The open loop first, then the swing sweep, then the slower step: a check cut short has the cheapest,
 # most judged figures of every design rather than all figures of a few.
-PRIORITY = {OPEN_LOOP: 2, SWING: 1, STEP: 0}
+PRIORITY = {OPEN_LOOP: 2, SWING: 1, STEP: 0, LOOP: -1}
 # How many times a task may be on a worker that died before the scheduler gives up on it.
 ALLOWED_FAILURES = 3
 

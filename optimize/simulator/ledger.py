@@ -16,7 +16,7 @@ import tempfile
 from collections import defaultdict
 from pathlib import Path
 
-from ampfront.optimize.simulator.verdict import AGREES, DISAGREES, FIGURES
+from ampfront.optimize.simulator.verdict import AGREES, DISAGREES, FIGURES, OPTIONAL
 from ampfront.topologies.errors import InputError
 
 NAME = "check.csv"
@@ -81,7 +81,8 @@ def finished(rows: list[dict]) -> dict[str, list[dict]]:
     done = {}
     for key, group in by_task.items():
         figures = FIGURES.get(group[0]["testbench"], ())
-        if (sorted(r["metric"] for r in group) == sorted(figures)
+        metrics = sorted(r["metric"] for r in group)
+        if (metrics in (sorted(figures), sorted(set(figures) - OPTIONAL))
                 and all(r["status"] in (AGREES, DISAGREES) for r in group)):
             done[key] = group
     return done

@@ -17,7 +17,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ampfront.optimize.outputs.netlist import CM_GAIN, RESULT_TAG, SUPPLY_GAIN, TESTBENCH_METRICS
+from ampfront.optimize.outputs.netlist import (CM_GAIN, LOOP_BAND, LOOP_FALL, LOOP_START, LOOP_STEP, RESULT_TAG,
+                                              SUPPLY_GAIN, TESTBENCH_METRICS)
 from ampfront.topologies.catalog import M
 
 DEFAULT_TIMEOUT_S = 120.0
@@ -165,3 +166,55 @@ def simulate_swing(testbench: Path, data_file: str, v_cm: float, timeout: float 
     hi = mid + int(np.flatnonzero(linear[mid:])[-1]) if linear[mid:].any() else mid
     return {M.gain_db: float(20 * np.log10(gain[mid])), M.out_low_v: float(v_out[hi]),
             M.out_high_v: float(v_out[lo])}
+
+
+# The loop testbench's slope is read over this fraction of an edge's window: long enough to smooth the edge of
+# the input ramp (one time step, fed through to the output by the compensation), short beside any slewing.
+SLOPE_WINDOW = 2e-3
+
+
+def _edge(t: np.ndarray, v: np.ndarray, start: float, stop: float, band: float) -> tuple[float, float]:
+    """Settling time (s, from `start`) into `band` (V) around the level the edge ends at (mean of the last
+    2 % of its window), and its steepest slope (V/s, magnitude, over SLOPE_WINDOW of the window)."""
+    inside = (t >= start) & (t <= stop)
+    t, v = t[inside], v[inside]
+    final = v[t >= stop - 0.02 * (stop - start)].mean()
+    outside = np.abs(v - final) > band
+    outside[0] = True
+    last = int(np.flatnonzero(outside)[-1])
+    if last >= len(t) - 1:
+        settling = math.inf
+    else:
+        # Where the error crosses the band between the last sample outside and the first inside.
+        e0, e1 = abs(v[last] - final), abs(v[last + 1] - final)
+        frac = (e0 - band) / (e0 - e1) if e0 != e1 else 0.0
+        settling = float(t[last] + frac * (t[last + 1] - t[last]) - start)
+    window = SLOPE_WINDOW * (stop - start)
+    grid = np.arange(start, stop, window / 4)
+    level = np.interp(grid, t, v)
+    slope = float(np.max(np.abs(level[4:] - level[:-4]) / window))
+    return max(settling, 0.0), slope
+
+
+def simulate_loop(testbench: Path, data_file: str, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, float]:
+    """Run a closed-loop application testbench; return the static gain error and the loop phase margin it
+    printed, and from its transient the slower edge's figures: the longer settling time (s, from the midpoint
+    of the input's edge to the last exit from the band) and the smaller steepest slope (V/s)."""
+    stdout, stderr = _run(testbench, timeout, outputs=(data_file,))
+    values = _tagged(stdout)
+    wanted = (M.gain_error, M.loop_phase_margin_deg, LOOP_STEP, LOOP_BAND, LOOP_START, LOOP_FALL)
+    missing = [k for k in wanted if k not in values or not math.isfinite(values[k])]
+    if missing:
+        raise _failure(f"{testbench.name}: ngspice did not measure {', '.join(missing)}", stdout, stderr, UNREADABLE)
+    try:
+        data = np.loadtxt(testbench.parent / data_file, ndmin=2)
+        t, v = data[:, :2].T
+    except (ValueError, IndexError) as error:
+        raise SpiceError(f"{testbench.name}: unreadable transient output {data_file} ({error})", UNREADABLE) from None
+    if len(t) < 10 or not np.isfinite(data[:, :2]).all():
+        raise SpiceError(f"{testbench.name}: the transient output {data_file} is too short or not finite", UNREADABLE)
+    t0, fall, band = values[LOOP_START], values[LOOP_FALL], values[LOOP_BAND] * values[LOOP_STEP]
+    rise = _edge(t, v, 1.5 * t0, fall, band)
+    drop = _edge(t, v, fall + 0.5 * t0, t[-1], band)
+    return {M.gain_error: values[M.gain_error], M.loop_phase_margin_deg: values[M.loop_phase_margin_deg],
+            M.step_settling_s: max(rise[0], drop[0]), M.step_slope_v_per_s: min(rise[1], drop[1])}

@@ -15,17 +15,18 @@ import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from ampfront.optimize.simulator.ngspice import FAILED, SpiceError, simulate, simulate_step, simulate_swing
+from ampfront.optimize.simulator.ngspice import (FAILED, SpiceError, simulate, simulate_loop, simulate_step,
+                                                 simulate_swing)
 
 # The testbenches of a design, by what they measure; the file suffix is how `ampfront run` names them.
-OPEN_LOOP, SWING, STEP = "open_loop", "swing", "step"
-SUFFIX = {OPEN_LOOP: "_tb.sp", SWING: "_swing.sp", STEP: "_step.sp"}
+OPEN_LOOP, SWING, STEP, LOOP = "open_loop", "swing", "step", "loop"
+SUFFIX = {OPEN_LOOP: "_tb.sp", SWING: "_swing.sp", STEP: "_step.sp", LOOP: "_loop.sp"}
 
 
 @dataclass(frozen=True)
 class Task:
     design: str
-    testbench: str                      # OPEN_LOOP, SWING or STEP
+    testbench: str                      # OPEN_LOOP, SWING, STEP or LOOP
     files: tuple[tuple[str, str], ...]  # (file name, text): the deck and the subcircuit it includes
     spice_init: tuple[str, ...] = ()
     v_cm: float = 0.9                   # where the swing sweep reads its mid-scale gain
@@ -103,6 +104,8 @@ def run_task(task: Task) -> Outcome:
                 values = simulate_swing(deck, f"{task.design}_swing.dat", task.v_cm, task.timeout)
             elif task.testbench == STEP:
                 values = simulate_step(deck, task.timeout)
+            elif task.testbench == LOOP:
+                values = simulate_loop(deck, f"{task.design}_loop.dat", task.timeout)
             else:
                 return Outcome(task.key, {}, FAILED, f"unknown testbench {task.testbench!r}")
     except SpiceError as error:

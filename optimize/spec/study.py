@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ampfront.topologies.application import CONFIGURATIONS, feedback_factor
 from ampfront.topologies.base import Conditions
 from ampfront.topologies.catalog import BOUNDS, CONDITIONS, DEFAULT_SATURATION_MARGIN, INPUT_CM, OBJECTIVES, OPTIONAL_RULES, RULES
 
@@ -167,6 +168,53 @@ def _noise_spots(source: str, raw) -> tuple[tuple[float, float], ...]:
     return tuple(out)
 
 
+@dataclass(frozen=True)
+class Application:
+    """How the amplifier is used (topologies/application.py), as the Conditions fields it sets."""
+
+    beta: float = 1.0
+    inverting: bool = False
+    r_network: float = np.inf
+    step_v: float = 0.0
+    settle_band: float = 0.01
+    stated: bool = False    # a closed-loop gain or feedback factor was given
+
+
+def _application(source: str, spec: dict, raw: dict) -> Application:
+    """The application keys, checked together: a gain error or a network needs a loop to sit in."""
+    def fail(key, expected):
+        raise InputError(source, f"spec.{key}", expected, raw.get(key))
+
+    gain, beta = spec.get("closed_loop_gain"), spec.get("feedback_factor")
+    configuration = spec.get("configuration")
+    if configuration is not None and configuration not in CONFIGURATIONS:
+        fail("configuration", f"one of {', '.join(CONFIGURATIONS)}{suggest(str(configuration), CONFIGURATIONS)}")
+    if configuration is not None and gain is None:
+        fail("configuration", "a configuration beside closed_loop_gain (feedback_factor states beta itself)")
+    if gain is not None and beta is not None:
+        fail("feedback_factor", "either closed_loop_gain or feedback_factor, not both")
+    configuration = configuration or "non_inverting"
+    if gain is not None:
+        if configuration == "non_inverting" and gain < 1:
+            fail("closed_loop_gain", "a non-inverting gain of at least 1 (G = 1 + Rf / Rg), such as 5")
+        beta = feedback_factor(gain, configuration)
+    elif beta is not None and beta > 1:
+        fail("feedback_factor", "a feedback factor above 0 and at most 1, such as 0.2")
+    stated = beta is not None
+    for key in ("max_gain_error", "feedback_resistance"):
+        if key in spec and not stated:
+            fail(key, "a closed_loop_gain (or feedback_factor) beside it: the loop it belongs to")
+    if spec.get("max_gain_error", 0.0) >= 1:
+        fail("max_gain_error", 'a fraction below 100 %, such as "0.1 %"')
+    if spec.get("settle_band", 0.0) >= 1:
+        fail("settle_band", 'a fraction below 100 %, such as "0.1 %"')
+    if spec.get("step", 0.0) >= spec["supply"]:
+        fail("step", f"an output step below the supply ({eng(spec['supply'], 'V')})")
+    return Application(beta=beta if stated else 1.0, inverting=configuration == "inverting",
+                       r_network=spec.get("feedback_resistance", np.inf), step_v=spec.get("step", 0.0),
+                       settle_band=spec.get("settle_band", 0.01), stated=stated)
+
+
 def load_study(path: Path, topology_names, text: str | None = None) -> Study:
     """Read and validate a study; `text` stands in for the file's content (a results folder's copy)."""
     source = str(path)
@@ -185,6 +233,7 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
     spots = _noise_spots(source, spots_raw)
     if spots:
         spec["max_noise_at"] = spots
+    application = _application(source, spec, spec_raw)
     swing = spec.get("min_output_swing")
     if swing is not None and swing >= supply:
         raise InputError(source, "spec.min_output_swing", f"a swing below the supply ({eng(supply, 'V')})", raw["spec"]["min_output_swing"])
@@ -209,7 +258,7 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
     if tolerance is not None:
         from ampfront.topologies.schema import read_value
 
-        tolerance = read_value(source, "supply_tolerance", tolerance, Field("%"))
+        tolerance = read_value(source, "supply_tolerance", tolerance, Field("1"))
         if not tolerance < MAX_SUPPLY_TOLERANCE:
             raise InputError(source, "supply_tolerance", f"a tolerance above 0 % and below "
                              f"{MAX_SUPPLY_TOLERANCE:.0%}, as in \"10 %\"", raw["supply_tolerance"])
@@ -221,10 +270,13 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
             raise InputError(source, key, "true or false", allowed)
         if allowed:
             lifted.add(rule)
-    constraints = _constraints(spec, cm_range, frozenset(lifted))
+    constraints = _constraints(spec, cm_range, frozenset(lifted), application.stated)
     conditions = Conditions(vdd=supply, c_load=spec["load_capacitance"],
                             r_load=spec.get("load_resistance", np.inf), v_cm=0.5 * (cm_range[0] + cm_range[1]),
-                            noise_band=noise_band, noise_spots=spots)
+                            noise_band=noise_band, noise_spots=spots, beta=application.beta,
+                            inverting=application.inverting, r_network=application.r_network,
+                            step_v=application.step_v, settle_band=application.settle_band,
+                            settling="max_settling_time" in spec or "settling" in objectives)
     return Study(
         path=path, title=_title(source, raw.get("title"), path.stem), spec=spec, conditions=conditions,
         cm_range=cm_range, constraints=constraints, objectives=objectives,
@@ -244,15 +296,18 @@ def _corner_list(source: str, raw, tech_path: Path) -> tuple[str, ...]:
     return _names(source, "corners", raw, shipped_corners, 1, len(shipped_corners))
 
 
-def _constraints(spec: dict, cm_range: tuple[float, float], lifted: frozenset = frozenset()) -> tuple[Constraint, ...]:
+def _constraints(spec: dict, cm_range: tuple[float, float], lifted: frozenset = frozenset(),
+                 at_beta: bool = False) -> tuple[Constraint, ...]:
     """Every spec bound becomes a constraint (objectives included: a front of designs that meet spec), then
-    the rules every design obeys whatever the spec (catalog.RULES)."""
+    the rules every design obeys whatever the spec (catalog.RULES). `at_beta`: the study states its loop,
+    so a bound the catalog also holds at the loop (min_phase_margin) is judged there only, not at the
+    unity-feedback open-loop testbench as well (that over-compensates a gain-of-5 loop)."""
     values = {b.key: b.default for b in BOUNDS.values() if b.default is not None}
     values |= {**spec, "saturation_margin": spec.get("saturation_margin", DEFAULT_SATURATION_MARGIN)}
     # A spot-noise list is held as its worst ratio to the limits: at most 1.
     values = {k: (1.0 if k in BOUNDS and BOUNDS[k].form == "spots" else v) for k, v in values.items()}
     out = [Constraint(b.key, b.metric, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
-           for b in BOUNDS.values() if b.key in values]
+           for b in BOUNDS.values() if b.key in values and not (at_beta and b.also)]
     out += [Constraint(f"{b.key}_{suffix}", m, b.sense, values[b.key], max(abs(values[b.key]), b.floor))
             for b in BOUNDS.values() if b.key in values for suffix, m in b.also]
     out += [Constraint(r.key, r.metric, r.sense, r.value, r.scale) for r in RULES.values() if r.key not in lifted]
