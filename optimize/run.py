@@ -55,9 +55,10 @@ def write_netlists(folder: Path, study: Study, tech, name: str, table: pd.DataFr
         (folder / ".spiceinit").write_text("\n".join(tech.spice_init) + "\n")
     at = [("", build, tech, study.conditions, table[M.gbw_hz], table[M.settling_s])]
     if corners is not None:
-        for label, corner in list(corners.at.items())[1:]:
+        at = []   # each corner's own figures (the table's are the worst corner's), the sizing corner first
+        for k, (label, corner) in enumerate(corners.at.items()):
             metrics = corners.by_corner[label]
-            at.append((f"_{label}", corners.builds[label], corner.tech, replace(study.conditions, vdd=corner.vdd),
+            at.append(("" if k == 0 else f"_{label}", corners.builds[label], corner.tech, replace(study.conditions, vdd=corner.vdd),
                        metrics[M.gbw_hz], metrics[M.settling_s]))
     for suffix, built, device_model, cond, gbws, settlings in at:
         for i, (design, gbw, settling) in enumerate(zip(table["design"], gbws, settlings)):

@@ -13,7 +13,7 @@ import json
 import math
 import re
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -30,12 +30,13 @@ from ampfront.optimize.simulator.selection import choose
 from ampfront.optimize.simulator.tasks import LOOP, OPEN_LOOP, STEP, SUFFIX, SWING, Task, make_task
 from ampfront.optimize.simulator.verdict import (AGREES, FIGURES, REJECTION_CEILING_DB, SWING_SHORTFALL_V,
                                                  SWING_SLACK_V)
+from ampfront.optimize.spec.corners import corner_set, evaluate_study
 from ampfront.optimize.spec.study import Study, load_study
 from ampfront.topologies.catalog import AGREEMENT, M, METRICS
 from ampfront.topologies.errors import InputError
 from ampfront.topologies.process.techfile import file_hash, load
 
-CORNER = "nominal"   # corners are verified one at a time later; the column is there already
+CORNER = "nominal"   # the corner column of a one-corner study; with corners, their labels
 NOT_REBUILT = "not rebuildable"
 # Netlists print values to 6 significant digits; a rebuilt design may differ from the searched one in the
 # last bits, so numbers are compared to this relative tolerance and everything else exactly.
@@ -148,37 +149,47 @@ class Planned:
     task: Task
     topology: str
     model: dict
+    vdd: float      # the supply at the task's corner (power from the simulated current)
 
 
 def plan(received: Received, picks: pd.DataFrame, timeout: float) -> tuple[list[Planned], list[dict]]:
-    """Every testbench of every picked design as a task, with what the model predicts; designs that cannot
-    be rebuilt as rows saying so. Refuses the whole folder if any netlist in it is not what ampfront
-    writes."""
+    """Every testbench of every picked design, at every corner of the study, as a task with what the model
+    predicts there; designs that cannot be rebuilt as rows saying so. Refuses the whole folder if any
+    netlist in it is not what ampfront writes."""
     planned, unbuilt = [], []
     init = tuple(received.tech.spice_init or ())
+    study, tech = received.study, received.tech
+    corners = corner_set(study, tech)
     for name, group in picks.groupby("topology", sort=False):
         topology = topologies.available()[name]
-        study, tech = received.study, received.tech
-        metrics, build = topologies.evaluate(topology, design_vectors(group), tech, study.conditions, step=True)
-        for j, design in enumerate(group["design"]):
-            model = {k: float(v[j]) for k, v in metrics.items()}
-            try:
-                horizon = step_horizon(model[M.gbw_hz], model[M.settling_s])
-                files = design_files(build, j, tech, study.conditions, design, topology.title, horizon)
-            except NetlistError as error:
-                unbuilt += [{"design": design, "corner": CORNER, "metric": metric, "model": model.get(metric),
-                             "status": NOT_REBUILT, "topology": name, "testbench": bench, "reason": str(error)}
-                            for bench, figures in FIGURES.items() for metric in figures
-                            if bench != LOOP or study.conditions.applied]
-                continue
-            _refuse_changed(received.folder, files)
-            sub = f"{design}.sp"
-            # The application's testbench only where the study states one (design_files writes it then).
-            for bench in (b for b in (OPEN_LOOP, SWING, STEP, LOOP) if f"{design}{SUFFIX[b]}" in files):
-                deck = f"{design}{SUFFIX[bench]}"
-                task = make_task(design, bench, {deck: files[deck], sub: files[sub]}, init,
-                                 study.conditions.v_cm, timeout, CORNER)
-                planned.append(Planned(task, name, model))
+        metrics, build, result = evaluate_study(topology, design_vectors(group), tech, study, corners, step=True)
+        if result is None:
+            at = [(CORNER, "", build, tech, study.conditions, metrics)]
+        else:
+            at = [(label, "" if k == 0 else f"_{label}", result.builds[label], c.tech,
+                   replace(study.conditions, vdd=c.vdd), result.by_corner[label])
+                  for k, (label, c) in enumerate(result.at.items())]
+        for corner, suffix, built, device_model, cond, values in at:
+            for j, base in enumerate(group["design"]):
+                design = f"{base}{suffix}"
+                model = {k: float(v[j]) for k, v in values.items()}
+                try:
+                    horizon = step_horizon(model[M.gbw_hz], model[M.settling_s])
+                    files = design_files(built, j, device_model, cond, design, topology.title, horizon)
+                except NetlistError as error:
+                    unbuilt += [{"design": base, "corner": corner, "metric": metric, "model": model.get(metric),
+                                 "status": NOT_REBUILT, "topology": name, "testbench": bench, "reason": str(error)}
+                                for bench, figures in FIGURES.items() for metric in figures
+                                if bench != LOOP or study.conditions.applied]
+                    continue
+                _refuse_changed(received.folder, files)
+                sub = f"{design}.sp"
+                # The application's testbench only where the study states one (design_files writes it then).
+                for bench in (b for b in (OPEN_LOOP, SWING, STEP, LOOP) if f"{design}{SUFFIX[b]}" in files):
+                    deck = f"{design}{SUFFIX[bench]}"
+                    task = make_task(base, bench, {deck: files[deck], sub: files[sub]}, init,
+                                     study.conditions.v_cm, timeout, corner, design)
+                    planned.append(Planned(task, name, model, cond.vdd))
     return planned, unbuilt
 
 
@@ -230,7 +241,7 @@ def verify(folder: Path, designs: str = "5", timeout: float = DEFAULT_TIMEOUT_S,
             with cluster.client(scheduler, workers) as dask_client:
                 for n, (task, outcome) in enumerate(cluster.run(dask_client, [p.task for p in todo]), 1):
                     p = by_key[task.key]
-                    fresh_rows = verdict.rows(task, outcome, p.topology, p.model, received.kind, constraints, vdd)
+                    fresh_rows = verdict.rows(task, outcome, p.topology, p.model, received.kind, constraints, p.vdd)
                     ledger.append(fresh_rows)
                     rows += fresh_rows
                     if progress:
@@ -250,8 +261,8 @@ def check_folder(folder: Path, count: int = 5, timeout: float = DEFAULT_TIMEOUT_
 
 def wide(rows: pd.DataFrame) -> pd.DataFrame:
     out = []
-    for design, group in rows.groupby("design", sort=False):
-        entry = {"design": design, "topology": group["topology"].iloc[0]}
+    for (design, corner), group in rows.groupby(["design", "corner"], sort=False):
+        entry = {"design": design, "corner": corner, "topology": group["topology"].iloc[0]}
         problems = []
         for _, r in group.iterrows():
             entry[f"{r['metric']}_model"] = r["model"]

@@ -50,7 +50,7 @@ def _meets(group: pd.DataFrame) -> str:
 def lines(result) -> list[str]:
     out = []
     rows = result.rows.fillna({"spec": "", "meets_spec": "", "reason": ""})
-    for design, group in rows.groupby("design", sort=False):
+    for (design, _), group in rows.groupby(["design", "corner"], sort=False):
         bad = group[group["status"] != AGREES]
         verdict = "agrees [ok]" if bad.empty else f"DISAGREES [{len(bad)} of {len(group)} figures]"
         out.append(f"{design} ({group['topology'].iloc[0]}, {group['corner'].iloc[0]}): {verdict} · {_meets(group)}")

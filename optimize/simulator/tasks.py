@@ -33,10 +33,15 @@ class Task:
     timeout: float = 120.0
     corner: str = "nominal"
     digest: str = field(default="", compare=False)   # deck_digest of the above; make_task fills it in
+    stem: str = ""      # the files' base name when it is not the design's (a corner's: tsm_001_ss)
+
+    @property
+    def base(self) -> str:
+        return self.stem or self.design
 
     @property
     def deck(self) -> str:
-        return f"{self.design}{SUFFIX[self.testbench]}"
+        return f"{self.base}{SUFFIX[self.testbench]}"
 
     @property
     def key(self) -> str:
@@ -54,9 +59,10 @@ def deck_digest(files, spice_init) -> str:
 
 
 def make_task(design: str, testbench: str, files: dict[str, str], spice_init=(), v_cm: float = 0.9,
-              timeout: float = 120.0, corner: str = "nominal") -> Task:
+              timeout: float = 120.0, corner: str = "nominal", stem: str = "") -> Task:
     items = tuple(sorted(files.items()))
-    return Task(design, testbench, items, tuple(spice_init), v_cm, timeout, corner, deck_digest(items, spice_init))
+    return Task(design, testbench, items, tuple(spice_init), v_cm, timeout, corner, deck_digest(items, spice_init),
+                stem)
 
 
 @dataclass(frozen=True)
@@ -101,11 +107,11 @@ def run_task(task: Task) -> Outcome:
             if task.testbench == OPEN_LOOP:
                 values = simulate(deck, task.timeout)
             elif task.testbench == SWING:
-                values = simulate_swing(deck, f"{task.design}_swing.dat", task.v_cm, task.timeout)
+                values = simulate_swing(deck, f"{task.base}_swing.dat", task.v_cm, task.timeout)
             elif task.testbench == STEP:
                 values = simulate_step(deck, task.timeout)
             elif task.testbench == LOOP:
-                values = simulate_loop(deck, f"{task.design}_loop.dat", task.timeout)
+                values = simulate_loop(deck, f"{task.base}_loop.dat", task.timeout)
             else:
                 return Outcome(task.key, {}, FAILED, f"unknown testbench {task.testbench!r}")
     except SpiceError as error:
