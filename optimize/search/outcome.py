@@ -35,6 +35,8 @@ class TopologyFront:
     evaluations: int
     history: list
     piles: list = field(default_factory=list)   # search.bounds.Pile: where the box, not physics, decides
+    hypervolume: float = float("nan")           # on the study's fixed window (search.hypervolume)
+    phases: dict = field(default_factory=dict)  # evaluations per search phase, NSGA-II generations run
 
 
 @dataclass
@@ -45,6 +47,7 @@ class Infeasible:
     build: object
     evaluations: int
     history: list
+    phases: dict = field(default_factory=dict)
 
     def describe(self) -> str:
         return f"{self.name}: no design met the spec; the closest misses " + "; ".join(m.describe() for m in self.misses)
