@@ -21,9 +21,7 @@ from typing import Callable
 import numpy as np
 from pymoo.algorithms.moo.nsga2 import NSGA2
 from pymoo.algorithms.moo.nsga3 import NSGA3
-from pymoo.core.population import Population
 from pymoo.core.problem import Problem
-from pymoo.operators.survival.rank_and_crowding import RankAndCrowding
 from pymoo.indicators.hv import HV
 from pymoo.util.nds.non_dominated_sorting import NonDominatedSorting
 from pymoo.util.ref_dirs import get_reference_directions
@@ -39,6 +37,10 @@ SEEDS_PER_END = 10          # designs each end run hands to NSGA-II
 STALL, STALL_GAIN = 10, 1e-3
 # Anchors carried onto the front: how many, each run's population, their share of the budget.
 ANCHORS, ANCHOR_SIZE, REFINE_SHARE, ROUNDS = 50, 8, 4.0, 3
+# Where, between a front design and its neighbour, a level may sit (so a wide gap can take several).
+GAP_STEPS = (0.5,)
+# Runs whose populations lend a level run its difference vectors (itself included).
+NEIGHBOURS = 5
 
 Progress = Callable[[int, int, float], None]  # generation, feasible designs, hypervolume
 
@@ -139,19 +141,24 @@ def run_search(problem: Problem, population: int, generations: int, seed: int,
     pool = (pop.get("X") - problem.xl) / unit
     spent["anchors"] = 0
     for _ in range(ROUNDS):
-        levels, nearest = _levels(F, span, min(ANCHORS, 2 * len(F)))
+        levels = _levels(F, span, min(ANCHORS, 2 * len(F)))
         generations_here = max(1, int(REFINE_SHARE * budget / (ROUNDS * len(levels) * ANCHOR_SIZE)) - 1)
-        others = np.argsort(rng.random((len(levels), len(pool))), axis=1)[:, :ANCHOR_SIZE - 1]
-        U0 = np.concatenate([((X[nearest] - problem.xl) / unit)[:, None, :], pool[others]], axis=1)
+        U0 = _start(levels, X, F, pool, rng, span, box, problem.xl)
         levels[:, 0] = np.inf
-        U_a, F_a, c_a = runs(problem, rng, U0, np.zeros(len(levels), int), levels, generations_here, span)
+        # The first level is the first objective's own end (_levels puts it first): free of the others.
+        levels[0] = np.inf
+        scaled = np.where(np.isfinite(levels), levels, 0.0) / span
+        distance = np.linalg.norm(scaled[:, None, :] - scaled[None, :, :], axis=-1)
+        neighbours = np.argsort(distance, axis=1, kind="stable")[:, :min(NEIGHBOURS, len(levels))]
+        U_a, F_a, c_a = runs(problem, rng, U0, np.zeros(len(levels), int), levels, generations_here, span,
+                             neighbours)
         spent["anchors"] += len(levels) * ANCHOR_SIZE * (generations_here + 1)
         ok = (c_a <= 0).reshape(-1)
         X = np.vstack([X, problem.xl + U_a.reshape(-1, n_var)[ok] * box])
         F = np.vstack([F, F_a.reshape(-1, n_obj)[ok]])
         X, F = _non_dominated(X, F)
         pool = np.vstack([pool, (X - problem.xl) / unit])
-    X, F = _thinned(X, F, pop_size)
+    X, F = _thinned(X, F, pop_size, span)
     hv = scale.hypervolume(F)
     if progress:
         progress(generations, history[-1][1] if history else 0, hv)   # the whole run is done: bar completes
@@ -167,35 +174,54 @@ def _levels(F: np.ndarray, span: np.ndarray, count: int) -> tuple[np.ndarray, np
     every objective, its nearest neighbour that is better on that objective (on a two-objective front: both
     neighbours along it, so a midpoint crosses every gap); each objective's best first, then
     farthest-point sampling in the window's scale (one pass per pick, vectorized over the candidates).
-    Returns the levels and, for each, the nearest front design."""
+    Returns the levels (one row each, in the searched objective space)."""
     scaled = F / span
     gap = np.linalg.norm(scaled[:, None, :] - scaled[None, :, :], axis=-1)
     halves = []
     for k in range(F.shape[1]):
         beyond = np.where(F[None, :, k] < F[:, None, k], gap, np.inf)
         has = np.isfinite(beyond).any(axis=1)
-        halves.append(((F + F[np.argmin(beyond, axis=1)]) / 2)[has])
+        toward = F[np.argmin(beyond, axis=1)][has]
+        halves += [F[has] + t * (toward - F[has]) for t in GAP_STEPS]
     candidates = np.vstack([F] + halves)
-    chosen = list(dict.fromkeys(int(i) for i in np.argmin(F, axis=0)))[:count]
-    cand = candidates / span
-    distance = np.min(np.linalg.norm(cand[:, None, :] - cand[chosen][None, :, :], axis=-1), axis=1)
-    while len(chosen) < min(count, len(candidates)):
-        pick = int(np.argmax(distance))
-        chosen.append(pick)
-        distance = np.minimum(distance, np.linalg.norm(cand - cand[pick], axis=1))
-    levels = candidates[chosen]
-    nearest = np.argmin(np.linalg.norm(levels[:, None, :] / span - scaled[None, :, :], axis=-1), axis=1)
-    return levels, nearest
+    # The front's own designs come first in `candidates`, so each objective's best design leads.
+    return candidates[_farthest(candidates / span, count)]
 
 
-def _thinned(X: np.ndarray, F: np.ndarray, count: int) -> tuple[np.ndarray, np.ndarray]:
-    """At most `count` designs of a non-dominated set, the most crowded dropped first (NSGA-II's crowding)."""
+def _start(levels, X, F, pool, rng, span, box, low) -> np.ndarray:
+    """Each level run's first population: half the front designs nearest its level (in the window's scale),
+    half drawn from the pool (NSGA-II's last population and earlier runs): a run across a gap starts from
+    both its edges, and the far half keeps its differences large enough to cross."""
+    unit = np.where(box > 0, box, 1.0)
+    near = min(ANCHOR_SIZE // 2, len(F))
+    distance = np.linalg.norm(levels[:, None, :] / span - F[None, :, :] / span, axis=-1)
+    closest = np.argsort(distance, axis=1, kind="stable")[:, :near]
+    U0 = (X[closest] - low) / unit
+    if near < ANCHOR_SIZE:
+        others = np.argsort(rng.random((len(levels), len(pool))), axis=1)[:, :ANCHOR_SIZE - near]
+        U0 = np.concatenate([U0, pool[others]], axis=1)
+    return U0
+
+
+def _thinned(X: np.ndarray, F: np.ndarray, count: int, span: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """At most `count` designs of a non-dominated set, evenly spread: the level runs leave clusters that
+    NSGA-II's crowding would thin unevenly, so the same farthest-point sampling as for the levels."""
     if len(F) <= count:
         return X, F
-    survivors = RankAndCrowding().do(Problem(n_var=X.shape[1], n_obj=F.shape[1]),
-                                     Population.new(X=X, F=F, row=np.arange(len(X))), n_survive=count)
-    keep = np.sort(survivors.get("row").astype(int))
+    keep = np.sort(_farthest(F / span, count))
     return X[keep], F[keep]
+
+
+def _farthest(points: np.ndarray, count: int) -> np.ndarray:
+    """Each coordinate's lowest point first, then repeatedly the point farthest from those chosen (one
+    vectorized pass per pick)."""
+    chosen = list(dict.fromkeys(int(i) for i in np.argmin(points, axis=0)))[:count]
+    distance = np.min(np.linalg.norm(points[:, None, :] - points[chosen][None, :, :], axis=-1), axis=1)
+    while len(chosen) < min(count, len(points)):
+        pick = int(np.argmax(distance))
+        chosen.append(pick)
+        distance = np.minimum(distance, np.linalg.norm(points - points[pick], axis=1))
+    return np.array(chosen)
 
 
 def _feasible_opt(algorithm) -> np.ndarray:
