@@ -35,8 +35,8 @@ END_SHARE = 1.0
 SEEDS_PER_END = 10          # designs each end run hands to NSGA-II
 # NSGA-II stops when the hypervolume has gained less than STALL_GAIN over STALL generations.
 STALL, STALL_GAIN = 10, 1e-3
-# Anchors carried onto the front: how many, each run's population, their share of the budget.
-ANCHORS, ANCHOR_SIZE, REFINE_SHARE, ROUNDS = 50, 8, 4.0, 3
+# Level runs: how many levels a round, each run's population, their share of the budget, rounds.
+LEVELS_PER_ROUND, RUN_SIZE, REFINE_SHARE, ROUNDS = 50, 8, 4.0, 3
 # Where, between a front design and its neighbour, a level may sit (so a wide gap can take several).
 GAP_STEPS = (0.5,)
 # Runs whose populations lend a level run its difference vectors (itself included).
@@ -136,13 +136,13 @@ def run_search(problem: Problem, population: int, generations: int, seed: int,
 
     # 3. Levels spread over the front, each run carried onto the front: least of the first objective at
     #    no worse a level of the others. A level may sit halfway between two neighbouring front designs,
-    #    so a gap NSGA-II left gets filled; a second round splits what the first left.
+    #    so a gap NSGA-II left gets filled; each later round splits what the one before left.
     unit = np.where(box > 0, box, 1.0)
     pool = (pop.get("X") - problem.xl) / unit
-    spent["anchors"] = 0
+    spent["levels"] = 0
     for _ in range(ROUNDS):
-        levels = _levels(F, span, min(ANCHORS, 2 * len(F)))
-        generations_here = max(1, int(REFINE_SHARE * budget / (ROUNDS * len(levels) * ANCHOR_SIZE)) - 1)
+        levels = _levels(F, span, min(LEVELS_PER_ROUND, 2 * len(F)))
+        generations_here = max(1, int(REFINE_SHARE * budget / (ROUNDS * len(levels) * RUN_SIZE)) - 1)
         U0 = _start(levels, X, F, pool, rng, span, box, problem.xl)
         levels[:, 0] = np.inf
         # The first level is the first objective's own end (_levels puts it first): free of the others.
@@ -152,7 +152,7 @@ def run_search(problem: Problem, population: int, generations: int, seed: int,
         neighbours = np.argsort(distance, axis=1, kind="stable")[:, :min(NEIGHBOURS, len(levels))]
         U_a, F_a, c_a = runs(problem, rng, U0, np.zeros(len(levels), int), levels, generations_here, span,
                              neighbours)
-        spent["anchors"] += len(levels) * ANCHOR_SIZE * (generations_here + 1)
+        spent["levels"] += len(levels) * RUN_SIZE * (generations_here + 1)
         ok = (c_a <= 0).reshape(-1)
         X = np.vstack([X, problem.xl + U_a.reshape(-1, n_var)[ok] * box])
         F = np.vstack([F, F_a.reshape(-1, n_obj)[ok]])
@@ -193,12 +193,12 @@ def _start(levels, X, F, pool, rng, span, box, low) -> np.ndarray:
     half drawn from the pool (NSGA-II's last population and earlier runs): a run across a gap starts from
     both its edges, and the far half keeps its differences large enough to cross."""
     unit = np.where(box > 0, box, 1.0)
-    near = min(ANCHOR_SIZE // 2, len(F))
+    near = min(RUN_SIZE // 2, len(F))
     distance = np.linalg.norm(levels[:, None, :] / span - F[None, :, :] / span, axis=-1)
     closest = np.argsort(distance, axis=1, kind="stable")[:, :near]
     U0 = (X[closest] - low) / unit
-    if near < ANCHOR_SIZE:
-        others = np.argsort(rng.random((len(levels), len(pool))), axis=1)[:, :ANCHOR_SIZE - near]
+    if near < RUN_SIZE:
+        others = np.argsort(rng.random((len(levels), len(pool))), axis=1)[:, :RUN_SIZE - near]
         U0 = np.concatenate([U0, pool[others]], axis=1)
     return U0
 
