@@ -70,6 +70,9 @@ def test_the_study_closes_the_loop_at_the_configurations_beta(gain, configuratio
     s = load_study(Path(study), available())
     assert s.conditions.beta == pytest.approx(beta)
     assert s.conditions.inverting == (configuration == "inverting")
-    assert s.conditions.r_output_load == pytest.approx(10e3)   # 20 kOhm network beside a 20 kOhm load
+    # The output drives the whole 20 kOhm network non-inverting, Rf alone inverting (inn is a virtual
+    # ground), beside the 20 kOhm load.
+    network = 20e3 if configuration == "non_inverting" else 20e3 * (1 - beta)
+    assert s.conditions.r_output_load == pytest.approx(1 / (1 / network + 1 / 20e3))
     names = {c.name for c in s.constraints}
     assert "min_phase_margin_loop" in names and "min_phase_margin" not in names

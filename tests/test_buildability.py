@@ -76,12 +76,12 @@ def test_micropower_demo_is_feasible_and_not_held_by_the_box(tmp_path):
 
 
 def test_a_front_against_a_search_bound_is_reported(tmp_path):
-    """A study built to hit one: the least power for a loose gain bound sits at the smallest tail current
-    the box allows."""
+    """A study built to hit one: a power budget of little more than the bias floor leaves the whole front at
+    the smallest tail current the box allows."""
     study = tmp_path / "pinned.toml"
     study.write_text('title = "Pinned"\ntopologies = ["simple_ota"]\nobjectives = ["power", "gain"]\n'
                      'technology = "generic180"\n[spec]\nsupply = "1.8 V"\nload_capacitance = "1 pF"\n'
-                     'min_gain = "20 dB"\n[search]\npopulation = 40\ngenerations = 20\n')
+                     'min_gain = "20 dB"\nmax_power = "1.2 uW"\n[search]\npopulation = 40\ngenerations = 20\n')
     summary = run_study(study, tmp_path / "out")
     piles = [p for p in summary.piles if p.variable == "i_tail" and p.side == "lower"]
     assert piles and piles[0].count >= piles[0].total / 2
