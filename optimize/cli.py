@@ -67,10 +67,6 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
         raise typer.Exit(3)
     _say(f"{summary.front_designs} front designs from {summary.evaluations:,} evaluated in {summary.wall_s:.1f} s "
          f"-> {summary.out / 'report.html'}")
-    fronts = {n: hv for n, hv in summary.hypervolumes.items() if hv == hv}
-    if fronts:
-        _say("hypervolume on the study's fixed window (1 = its ideal corner): "
-             + ", ".join(f"{n} {hv:.4f}" for n, hv in fronts.items()))
 
 
 @app.command()

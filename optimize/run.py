@@ -17,7 +17,6 @@ from ampfront.optimize.outputs import netlist, report
 from ampfront.optimize.outputs.folder import TOOL_MARK, check_destination, staged_directory
 from ampfront.optimize.outputs.tables import device_table, versions, write_json
 from ampfront.optimize.search.engine import Progress
-from ampfront.optimize.search.hypervolume import window_for
 from ampfront.optimize.search.merge import merged_front
 from ampfront.optimize.spec.corners import corner_set
 from ampfront.optimize.search.outcome import Infeasible, Outcome, TopologyFront
@@ -40,9 +39,6 @@ class RunSummary:
     infeasible: dict[str, Infeasible] = field(default_factory=dict)
     warnings: list[str] = field(default_factory=list)
     piles: list = field(default_factory=list)     # search.bounds.Pile
-    # topology -> hypervolume of its front on the study's fixed window (NaN: no feasible front)
-    hypervolumes: dict[str, float] = field(default_factory=dict)
-    convergence: dict = field(default_factory=dict)   # per topology: hypervolume, evaluations by phase
 
     @property
     def feasible(self) -> bool:
@@ -115,9 +111,6 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     if getattr(tech, "models_missing", None):
         summary.warnings.append(f"testbenches cannot run yet: {tech.models_missing}")
     summary.piles = [p for f in fronts for p in f.piles]
-    summary.hypervolumes = {n: (o.hypervolume if isinstance(o, TopologyFront) else float("nan"))
-                            for n, o in outcomes.items()}
-    summary.convergence = _convergence(study, outcomes)
     summary.warnings += [p.describe() for p in summary.piles]
     with staged_directory(final) as stage:
         table.to_csv(stage / "front.csv", index=False, float_format="%.9g")
@@ -130,16 +123,6 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
         write_json(stage / "manifest.json", _manifest(study, tech, summary, time.perf_counter() - started))
     summary.wall_s = time.perf_counter() - started
     return summary
-
-
-def _convergence(study: Study, outcomes: dict[str, Outcome]) -> dict:
-    window = window_for(study)
-    topologies_ = {}
-    for name, outcome in outcomes.items():
-        hv = outcome.hypervolume if isinstance(outcome, TopologyFront) else None
-        topologies_[name] = {"hypervolume": None if hv is None or np.isnan(hv) else round(float(hv), 6),
-                             "evaluations": outcome.evaluations, "phases": dict(outcome.phases)}
-    return {"window": window.record(), "topologies": topologies_}
 
 
 def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:
@@ -166,8 +149,5 @@ def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:
         "infeasible_topologies": {n: o.describe() for n, o in summary.infeasible.items()},
         # Variables at whose search bound most of a front sits: the box, not physics, limits it there.
         "at_search_bounds": [p.record() for p in summary.piles],
-        # How far each front got: hypervolume on a window fixed by the study (comparable across seeds and
-        # budgets of this study), and where the evaluations went.
-        "convergence": summary.convergence,
         "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
     }

@@ -35,8 +35,6 @@ class TopologyFront:
     evaluations: int
     history: list
     piles: list = field(default_factory=list)   # search.bounds.Pile: where the box, not physics, decides
-    hypervolume: float = float("nan")           # on the study's fixed window (search.hypervolume)
-    phases: dict = field(default_factory=dict)  # evaluations per search phase, NSGA-II generations run
     corners: object = None  # topologies.corners.CornerResult of the front designs, for a study with corners
 
 
@@ -48,7 +46,6 @@ class Infeasible:
     build: object
     evaluations: int
     history: list
-    phases: dict = field(default_factory=dict)
     corners: object = None
 
     def describe(self) -> str:
