@@ -129,3 +129,16 @@ def test_holding_every_corner_never_beats_the_nominal(tmp_path):
         np.testing.assert_allclose(metrics["gbw_hz"], rows["gbw_hz@tt"], rtol=1e-6)
         # And holding the corners costs something: some corner is worse than nominal on every design.
         assert (rows["gbw_hz"].to_numpy() < metrics["gbw_hz"] * 0.99).all()
+
+
+def test_a_corner_name_that_is_no_identifier_is_refused(tmp_path):
+    """Corner names reach column, file and subcircuit names: a technology file's odd one is refused in one
+    line before anything runs, not silently left without netlists."""
+    from ampfront.topologies.errors import InputError
+
+    tech = tmp_path / "odd.toml"
+    tech.write_text(shipped()["generic180"].read_text() + '\n[corners."ss-hot"]\nvto_shift = "80 mV"\nkp_scale = 0.85\n')
+    study = tmp_path / "s.toml"
+    study.write_text(STUDY.format(technology="odd.toml", corners='corners = ["ss-hot"]', cm="0.9 V"))
+    with pytest.raises(InputError, match="corners"):
+        load_study(study, topologies.available())

@@ -35,6 +35,7 @@ SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed"
 SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed": (0, 2**32 - 1)}
 SEARCH_DEFAULTS = {"population": 100, "generations": 60, "seed": 1}
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+_CORNER_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,23}$")
 TOP_KEYS = {"title", "topologies", "objectives", "technology", "corner", "corners", "supply_tolerance", "spec",
             "search", *OPTIONAL_RULES}
 MAX_SUPPLY_TOLERANCE = 0.3   # beyond +-30 % a supply is another design, not a tolerance
@@ -293,7 +294,13 @@ def _corner_list(source: str, raw, tech_path: Path) -> tuple[str, ...]:
     shipped_corners = corners(tech_path)
     if not shipped_corners:
         raise InputError(source, "corners", "no corners: the technology declares none", raw)
-    return _names(source, "corners", raw, shipped_corners, 1, len(shipped_corners))
+    names = _names(source, "corners", raw, shipped_corners, 1, len(shipped_corners))
+    for name in names:
+        # A corner's name becomes part of column, file and subcircuit names: a plain identifier only.
+        if not _CORNER_NAME.match(name):
+            raise InputError(source, "corners", "corner names of letters, digits and _ (a technology file's "
+                             "[corners.<name>] must be one)", name)
+    return names
 
 
 def _constraints(spec: dict, cm_range: tuple[float, float], lifted: frozenset = frozenset(),
