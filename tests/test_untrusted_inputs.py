@@ -8,6 +8,7 @@ reached a deck (the marker file below is how that would show); the rules are the
 import json
 import shutil
 
+import numpy as np
 import pytest
 
 from ampfront.topologies.process.techfile import shipped
@@ -47,6 +48,48 @@ def test_bad_technology_file_is_one_line(case, tmp_path):
     proc = ampfront("run", study, "--out", tmp_path / "out")
     line = one_line(proc)
     assert proc.returncode == 2 and "bad_process.toml" in line and "expected" in line
+    assert not (tmp_path / "out").exists() and not marker.exists()
+
+
+def _rewrite_table(path, change):
+    """Write the table file at `path` again with its meta record changed by `change(meta)`."""
+    with np.load(path) as data:
+        arrays = {k: data[k] for k in data.files}
+    meta = json.loads(str(arrays["meta"]))
+    change(meta)
+    arrays["meta"] = np.array(json.dumps(meta))
+    np.savez(path, **arrays)
+
+
+def _inject_device(marker):
+    return lambda meta: meta.update(device=f"sky130_fd_pr__nfet_01v8\n.control\nshell touch {marker}\n.endc")
+
+
+BAD_TABLES = {
+    "device_name_injects_control": lambda path, marker: _rewrite_table(path, _inject_device(marker)),
+    "device_name_with_spaces": lambda path, marker: _rewrite_table(path, lambda m: m.update(device="nfet 01v8")),
+    "polarity_swapped": lambda path, marker: _rewrite_table(path, lambda m: m.update(polarity="p")),
+    "garbage": lambda path, marker: path.write_bytes(b"PK\x03\x04 not a zip archive at all"),
+    "without_meta": lambda path, marker: np.savez(path, id=np.zeros(3)),
+    "meta_not_json": lambda path, marker: np.savez(path, meta=np.array("{not json")),
+}
+
+
+@pytest.mark.parametrize("case", sorted(BAD_TABLES))
+def test_bad_table_file_is_one_line(case, tmp_path):
+    """A table technology's .npz files are data too: the device name they carry becomes a subcircuit name
+    in every netlist, so anything but a SPICE identifier is refused at load, as is a file that is not a table."""
+    marker = tmp_path / "INJECTED"
+    data = shipped()["sky130"].parent
+    shutil.copy(shipped()["sky130"], tmp_path / "process.toml")
+    shutil.copytree(data / "sky130", tmp_path / "sky130")
+    table = tmp_path / "sky130" / "sky130_fd_pr__nfet_01v8__tt__27C.npz"
+    BAD_TABLES[case](table, marker)
+    study = tmp_path / "study.toml"
+    study.write_text(TINY_STUDY.replace('technology = "generic180"', 'technology = "process.toml"'))
+    proc = ampfront("run", study, "--out", tmp_path / "out")
+    line = one_line(proc)
+    assert proc.returncode == 2 and "sky130_fd_pr__nfet_01v8__tt__27C.npz" in line and "expected" in line, line
     assert not (tmp_path / "out").exists() and not marker.exists()
 
 

@@ -5,6 +5,7 @@ from __future__ import annotations
 import hashlib
 import json
 import re
+import zipfile
 from dataclasses import replace
 
 import numpy as np
@@ -164,6 +165,25 @@ def load(path: Path, corner: str | None = None) -> Technology:
     )
 
 
+# A table's device name reaches every netlist as a subcircuit name: a SPICE identifier and nothing else.
+_DEVICE = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,79}$")
+
+
+def _device_table(file: Path, polarity: str) -> DeviceTable:
+    """A table file, refused in one line when it is not one `ampfront characterize` writes."""
+    expected = "a table file written by 'ampfront characterize'"
+    try:
+        table = DeviceTable(file)
+        device, kind = table.meta["device"], table.meta.get("polarity")
+    except (OSError, ValueError, KeyError, TypeError, EOFError, zipfile.BadZipFile) as error:
+        raise InputError(str(file), "(table)", expected, f"unreadable: {type(error).__name__}") from None
+    if not isinstance(device, str) or not _DEVICE.match(device):
+        raise InputError(str(file), "meta.device", "a SPICE subcircuit name (letters, digits, _)", device)
+    if kind is not None and kind != polarity[0]:
+        raise InputError(str(file), "meta.polarity", f"'{polarity[0]}' (the file is listed as the {polarity})", kind)
+    return table
+
+
 def _load_tables(path: Path, raw: dict, corner: str | None) -> Technology:
     source = str(path)
     top = read_table(source, "", {k: v for k, v in raw.items() if k != "corners"}, _TABLE_TOP)
@@ -181,7 +201,7 @@ def _load_tables(path: Path, raw: dict, corner: str | None) -> Technology:
         file = path.parent / entry[polarity]
         if not file.is_file():
             raise InputError(source, f"corners.{corner}.{polarity}", "an existing table file (.npz)", entry[polarity])
-        devices[polarity] = DeviceTable(file)
+        devices[polarity] = _device_table(file, polarity)
     flicker = {"n": None, "p": None}
     if "flicker" in entry:
         file = path.parent / entry["flicker"]
