@@ -14,7 +14,7 @@ import pandas as pd
 
 from ampfront import topologies
 from ampfront.optimize.outputs import netlist, report
-from ampfront.optimize.outputs.folder import TOOL_MARK, check_destination, staged_directory
+from ampfront.optimize.outputs.folder import TOOL_MARK, check_destination, staged_directory, written_files
 from ampfront.optimize.outputs.tables import device_table, versions, write_json
 from ampfront.optimize.search.engine import Progress
 from ampfront.optimize.search.merge import merged_front
@@ -120,7 +120,10 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
         for outcome in chosen:
             rows = table[table["topology"] == outcome.name]
             write_netlists(stage / "netlists", study, tech, outcome.name, rows, outcome.build, outcome.corners)
-        write_json(stage / "manifest.json", _manifest(study, tech, summary, time.perf_counter() - started))
+        manifest = _manifest(study, tech, summary, time.perf_counter() - started)
+        # What the sub-folders hold, so a later --overwrite can tell a file of the user's among them.
+        manifest["files"] = written_files(stage)
+        write_json(stage / "manifest.json", manifest)
     summary.wall_s = time.perf_counter() - started
     return summary
 

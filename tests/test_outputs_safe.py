@@ -6,6 +6,9 @@ after each command); the rule is the project's own (README, "Outputs").
 
 import json
 import os
+from pathlib import Path
+
+import pytest
 
 from .clirun import TINY_STUDY, ampfront, one_line, tree_digest
 
@@ -54,12 +57,33 @@ def test_out_that_is_a_file(tmp_path):
     assert tree_digest(home) == before
 
 
-def test_impossible_out_fails_before_the_search(tmp_path):
+def test_impossible_out_fails_before_the_search(tmp_path, monkeypatch):
+    from ampfront.optimize import run
+    from ampfront.topologies.errors import InputError
+
+    searched = []
+    monkeypatch.setattr(run, "_search", lambda *args: searched.append(args))
+    with pytest.raises(InputError, match="create and write"):
+        run.run_study(_study(tmp_path), Path("/proc/ampfront-cannot-be-here"))
+    assert not searched
+    proc = ampfront("run", _study(tmp_path), "--out", "/proc/ampfront-cannot-be-here")
+    assert proc.returncode == 2 and "create and write" in one_line(proc)
+
+
+def test_a_refused_run_creates_no_folders(tmp_path, monkeypatch):
+    """Refused after the destination was judged (here: the technology, refused as it loads), a run leaves
+    none of the missing parent folders of --out behind."""
+    from ampfront.optimize import run
+    from ampfront.topologies.errors import InputError
+
+    def refuse(*args):
+        raise InputError("process.toml", "name", "a plain name")
+
+    monkeypatch.setattr(run, "load", refuse)
     study = _study(tmp_path)
-    proc = ampfront("run", study, "--out", "/proc/ampfront-cannot-be-here")
-    line = one_line(proc)
-    assert proc.returncode == 2 and "create and write" in line
-    assert "gen" not in proc.stderr   # no search progress was shown: it never started
+    with pytest.raises(InputError):
+        run.run_study(study, tmp_path / "a" / "b" / "result")
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["study.toml"]
 
 
 def test_earlier_result_is_replaced_only_when_asked(tmp_path):
@@ -77,14 +101,20 @@ def test_earlier_result_is_replaced_only_when_asked(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["result", "study.toml"]
 
 
-def test_a_users_file_inside_an_earlier_result_is_never_replaced(tmp_path):
+@pytest.mark.parametrize("place", ["my_annotations.txt", "netlists/my_annotations.txt", "netlists/mine/deck.sp",
+                                   "netlists/my_variant.sp"])
+def test_a_users_file_inside_an_earlier_result_is_never_replaced(place, tmp_path):
+    """Also inside the result's own sub-folders: the manifest lists every file ampfront wrote there, so even
+    a deck of the user's named like ours is found."""
     study = _study(tmp_path)
     out = tmp_path / "result"
     assert ampfront("run", study, "--out", out).returncode == 0
-    (out / "my_annotations.txt").write_text("keep me\n")
+    (out / place).parent.mkdir(parents=True, exist_ok=True)
+    (out / place).write_text("keep me\n")
     before = tree_digest(out)
     proc = ampfront("run", study, "--out", out, "--overwrite")
-    assert proc.returncode == 2 and "my_annotations.txt" in one_line(proc)
+    line = one_line(proc)
+    assert proc.returncode == 2 and place.split("/")[-1] in line or place.rsplit("/", 1)[0] in line, line
     assert tree_digest(out) == before
 
 

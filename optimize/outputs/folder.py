@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import shutil
 import tempfile
 from contextlib import contextmanager
@@ -54,7 +55,7 @@ def check_destination(out: Path, overwrite: bool, protect: tuple[Path, ...] = ()
             if not is_result_folder(final):
                 raise InputError(source, option, "a new or empty folder, or an earlier ampfront result "
                                  f"(this folder holds other files, e.g. '{entries[0]}', which ampfront never replaces)")
-            foreign = [e for e in entries if e not in OWN_ENTRIES]
+            foreign = [e for e in entries if e not in OWN_ENTRIES] or _foreign_inside(final)
             if foreign:
                 raise InputError(source, option, f"an ampfront result holding only its own files (found '{foreign[0]}'; "
                                  "move it away first)")
@@ -67,14 +68,50 @@ def check_destination(out: Path, overwrite: bool, protect: tuple[Path, ...] = ()
                 inside = False
             if inside:
                 raise InputError(source, option, f"a folder that does not hold the input {path.name}")
-    parent = final.parent
+    # Probe the nearest folder that exists: creating the missing parents is left to the write itself, so a
+    # run refused later (a bad technology, say) leaves no empty folders behind.
+    existing = final.parent
+    while not existing.exists() and existing != existing.parent:
+        existing = existing.parent
     try:
-        parent.mkdir(parents=True, exist_ok=True)
-        probe = tempfile.mkdtemp(prefix=f".{final.name}.probe-", dir=parent)
+        if not existing.is_dir():
+            raise NotADirectoryError(f"{existing} is not a folder")
+        probe = tempfile.mkdtemp(prefix=f".{final.name}.probe-", dir=existing)
         os.rmdir(probe)
     except OSError as error:
         raise InputError(source, option, f"a folder ampfront can create and write ({error.strerror or error})") from None
     return final
+
+
+def written_files(folder: Path) -> list[str]:
+    """Every file inside the result's own sub-folders, relative to it (for the manifest)."""
+    return sorted(str(p.relative_to(folder)) for name in sorted(OWN_ENTRIES) if (folder / name).is_dir()
+                  for p in (folder / name).rglob("*") if not p.is_dir())
+
+
+# Results written before manifests listed their files: what their sub-folders could hold.
+_OWN_FILE = re.compile(r"^[A-Za-z0-9_.+-]+\.(sp|svg|png)$")
+
+
+def _foreign_inside(folder: Path) -> list[str]:
+    """Entries of an earlier result's sub-folders that its manifest does not list as written by ampfront."""
+    try:
+        listed = json.loads((folder / MANIFEST).read_text(encoding="utf-8")).get("files")
+    except (OSError, ValueError, UnicodeDecodeError, AttributeError):
+        listed = None
+    found = []
+    for name in sorted(OWN_ENTRIES):
+        sub = folder / name
+        if not sub.is_dir() or sub.is_symlink():
+            continue
+        for p in sorted(sub.rglob("*")):
+            relative = str(p.relative_to(folder))
+            ours = (relative in listed) if isinstance(listed, list) else (
+                p.parent == sub and _OWN_FILE.match(p.name) is not None)
+            if not ours and not (p.is_dir() and isinstance(listed, list)
+                                 and any(f.startswith(relative + os.sep) for f in listed)):
+                found.append(relative)
+    return found
 
 
 @contextmanager
