@@ -20,7 +20,10 @@ from ampfront.optimize.simulator.characterize import CharacterizeError, _run
 from ampfront.topologies.process.libraries import ModelLibrary
 
 FORMAT = "ampfront-flicker/1"
-GM_ID_LEVELS = (5.0, 10.0, 15.0, 20.0)
+# Up to weak inversion: K falls there (BSIM4's flicker is not a constant input-referred density), and designs
+# bias low-noise pairs at gm/ID 25 and beyond; a grid stopping at 20 read their 1/f noise 15-18 % high in
+# ngspice. Short lengths cannot reach the top level; see `measure`.
+GM_ID_LEVELS = (5.0, 10.0, 15.0, 20.0, 25.0)
 FINGERS = 4          # 4 x 1 um: wide enough that narrow-width effects match what designs draw
 VDS = 0.9
 
@@ -45,15 +48,18 @@ def measure(lib: ModelLibrary, table: DeviceTable, temp: float) -> dict:
     width_um = float(table.meta["grid"]["width_um"])
     k_grid = np.full((len(table.l), len(GM_ID_LEVELS)), np.nan)
     slope = np.full_like(k_grid, np.nan)
+    measured = np.zeros(k_grid.shape, bool)
     for i, l in enumerate(table.l):
         vgs = table.solve_vgs("gmid", np.full(len(GM_ID_LEVELS), l), np.log(GM_ID_LEVELS), VDS, 0.0, from_top=True)
-        if not np.isfinite(vgs).all():
-            # A bias the table cannot give would be simulated as garbage; say so instead.
+        reached = np.isfinite(vgs)
+        # A length may fall short of the top levels (a short pMOS never reaches gm/ID 25); a gap below a
+        # reached level, or too few levels, would be simulated as garbage: say so instead.
+        if reached.sum() < 2 or not reached[:reached.sum()].all():
             raise CharacterizeError(f"{device} L = {l * 1e6:g} um: the table reaches no bias for gm/ID "
-                                    f"{', '.join(f'{g:g}' for g, v in zip(GM_ID_LEVELS, vgs) if not np.isfinite(v))}")
+                                    f"{', '.join(f'{g:g}' for g, r in zip(GM_ID_LEVELS, reached) if not r)}")
         with tempfile.TemporaryDirectory(prefix="ampfront-flicker-") as tmp:
-            out = _run(_deck(lib, device, polarity, l * 1e6, width_um, vgs, temp), Path(tmp), "flicker", lib,
-                       f"{device} flicker at L = {l * 1e6:g} um")
+            out = _run(_deck(lib, device, polarity, l * 1e6, width_um, vgs[reached], temp), Path(tmp), "flicker",
+                       lib, f"{device} flicker at L = {l * 1e6:g} um")
         for line in out.splitlines():
             parts = line.split()
             if line.startswith("flicker:") and len(parts) == 4:
@@ -61,8 +67,12 @@ def measure(lib: ModelLibrary, table: DeviceTable, temp: float) -> dict:
                 area = FINGERS * width_um * 1e-6 * l
                 k_grid[i, j] = s1**2 * area
                 slope[i, j] = 2 * np.log10(s1 / s10)
+        # Levels the length cannot reach keep its highest measured value: the model clips gm/ID there too.
+        top = int(reached.sum()) - 1
+        k_grid[i, top + 1:], slope[i, top + 1:] = k_grid[i, top], slope[i, top]
+        measured[i] = reached
     return {"l_um": (table.l * 1e6).round(6).tolist(), "gm_id": list(GM_ID_LEVELS),
-            "k_v2m2": k_grid.tolist(), "exponent": np.round(slope, 3).tolist()}
+            "k_v2m2": k_grid.tolist(), "exponent": np.round(slope, 3).tolist(), "measured": measured.tolist()}
 
 
 def write(lib: ModelLibrary, tables: dict[str, DeviceTable], corner: str, temp: float, out: Path,
