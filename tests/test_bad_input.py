@@ -147,6 +147,7 @@ def test_characterize_out_that_is_a_file(tmp_path):
     assert target.read_text() == "mine\n"
 
 
+@pytest.mark.spice
 def test_characterize_names_a_missing_device(tmp_path):
     """A device the library does not define: ngspice's complaint becomes one clear line."""
     proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "characterize", "--out", str(tmp_path / "t"),

@@ -22,8 +22,9 @@ ROOT = Path(__file__).resolve().parents[1]
 # What a unit looks like once formatted: the quantity's own unit, never another's.
 SHOWN_UNIT = {"V": "V", "F": "F", "Ohm": "Ω", "dB": "dB", "Hz": "Hz", "deg": "°", "V/s": "V/µs", "W": "W",
               "m^2": "µm²", "V/sqrt(Hz)": "V/√Hz", "A": "A", "m": "m", "s": "s",
-              # Plain numbers (a gain in V/V, a fraction in %) and text (a configuration's name).
-              "1": "", "str": ""}
+              # Plain numbers: a gain or feedback factor in V/V, a fraction in %. Text (a configuration's
+              # name) is shown as written: see _unit.
+              "1": ("V/V", "%")}
 
 
 def _readme_study() -> str:
@@ -55,7 +56,11 @@ def _unit(key: str) -> str:
         unit, dimension = shown.display_unit or shown.unit, BOUNDS[key].dimension
     else:
         unit, dimension = CONDITIONS[key].unit, CONDITIONS[key].dimension
-    assert SHOWN_UNIT[dimension] in unit or unit == "Hz", (key, unit, dimension)
+    if dimension == "str":
+        return ""
+    shown = SHOWN_UNIT[dimension]
+    assert (unit in shown) if isinstance(shown, tuple) else (shown in unit or unit == "Hz"), (key, unit, dimension)
+    assert unit, key
     return unit
 
 
@@ -64,6 +69,9 @@ def test_every_spec_key_has_a_unit_and_a_label(key):
     value = 2.5 if key not in CONDITIONS or CONDITIONS[key].form == "value" else (1.0, 2.0)
     if key in BOUNDS and BOUNDS[key].form == "spots":
         value = ((20e-9, 1e4), (1e-6, 1.0))
+    if key in CONDITIONS and CONDITIONS[key].dimension == "str":
+        value = "non_inverting"
+        assert format_spec(key, value) == "non-inverting"
     assert format_spec(key, value).endswith(_unit(key))
     if key in BOUNDS:
         assert BOUNDS[key].metric in METRICS
@@ -71,8 +79,14 @@ def test_every_spec_key_has_a_unit_and_a_label(key):
 
 
 def test_check_compares_only_declared_metrics_with_a_bound_per_technology_kind():
+    from ampfront.optimize.simulator.verdict import FIGURES
+
     for name, bounds in AGREEMENT.items():
         assert name in METRICS and set(bounds) == {"square_law", "gm_id_tables"}
+    judged = {m for figures in FIGURES.values() for m in figures}
+    swing = {"out_low_v", "out_high_v", "swing_v"}   # judged by SWING_SLACK_V / SWING_SHORTFALL_V
+    # Every figure a testbench judges has its bound in the catalog, and nothing else does.
+    assert judged - swing == set(AGREEMENT), judged ^ set(AGREEMENT)
 
 
 def test_objectives_map_declared_metrics_with_a_direction():
@@ -89,7 +103,11 @@ def test_every_topology_reports_only_declared_metrics_and_the_evaluator_derives_
         metrics, _ = evaluate(topology, random_designs(topology, tech, 4), tech, DEMO_CONDITIONS)
         for key in metrics:
             metric(key)   # raises for an undeclared name
-        np.testing.assert_allclose(metrics["swing_v"], metrics["out_high_v"] - metrics["out_low_v"])
+        # Derived once, by the evaluator: no topology or stage reports them itself.
+        for derived in ("swing_v", "peak_out_a", "power_w"):
+            assert derived in metrics and derived not in topology.reports, (name, derived)
+            stage = getattr(topology, "stage", None)
+            assert stage is None or derived not in stage.reports, (name, derived)
 
 
 def test_no_metric_name_is_spelled_outside_the_catalog():

@@ -352,4 +352,19 @@ AGREEMENT: dict[str, dict[str, tuple[str, float]]] = {
     "psrr_db": {"square_law": ("abs", 2.0), "gm_id_tables": ("abs", 6.0)},
     # Percentage points, from the closed-loop small-step transient (the bound for PM >= 45 deg).
     "overshoot_pct": {"square_law": ("abs", 3.0), "gm_id_tables": ("abs", 4.0)},
+    # The application testbench (_loop.sp): the loop's phase margin as the open loop's; the static gain error
+    # relative (it is 1 / (1 + A0 beta), so the gain bound in dB sets it: 0.5 dB is 6 %, 3 dB 41 %); settling
+    # within 20 %; the slope where the step slews within 10 % (where it does not, the slope is not judged:
+    # the pair's large-signal gm makes it nonlinear, and the settling time already judges the response).
+    "loop_phase_margin_deg": {"square_law": ("abs", 3.0), "gm_id_tables": ("abs", 5.0)},
+    "gain_error": {"square_law": ("rel", 0.1), "gm_id_tables": ("rel", 0.5)},
+    "step_settling_s": {"square_law": ("rel", 0.2), "gm_id_tables": ("rel", 0.2)},
+    "step_slope_v_per_s": {"square_law": ("rel", 0.1), "gm_id_tables": ("rel", 0.1)},
 }
+# Power is the supply current at the study's supply, so it agrees as the current does.
+AGREEMENT["power_w"] = AGREEMENT["supply_current_a"]
+# Swing from the DC sweep into the load: the model's ends keep every device of the signal path saturated, so
+# they may end up to SWING_SHORTFALL_V short of where the swept gain collapses 20 dB, and may claim at most
+# SWING_SLACK_V beyond it (each end; twice both for the swing itself).
+SWING_SLACK_V = 0.05
+SWING_SHORTFALL_V = 0.3

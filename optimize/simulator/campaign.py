@@ -18,8 +18,8 @@ import numpy as np
 import pandas as pd
 
 from ampfront.optimize.simulator.ledger import NAME, read
-from ampfront.optimize.simulator.verdict import AGREES, BOUNDS, DISAGREES, FIGURES
-from ampfront.topologies.catalog import METRICS
+from ampfront.optimize.simulator.verdict import AGREES, DISAGREES, FIGURES
+from ampfront.topologies.catalog import AGREEMENT, METRICS
 
 ORDER = [m for figures in FIGURES.values() for m in figures]
 
@@ -37,7 +37,7 @@ def _signed(rows: pd.DataFrame) -> pd.Series:
     """simulated - model, relative for the figures the check compares relatively."""
     diff = rows["simulated"] - rows["model"]
     metric = rows["metric"].iloc[0]
-    rel = metric in BOUNDS and next(iter(BOUNDS[metric].values()))[0] == "rel"
+    rel = metric in AGREEMENT and next(iter(AGREEMENT[metric].values()))[0] == "rel"
     return diff / rows["model"].abs() if rel else diff
 
 
@@ -59,7 +59,7 @@ def table(rows: pd.DataFrame) -> pd.DataFrame:
 def _fmt(metric: str, value: float) -> str:
     if metric in FIGURES["swing"]:
         return f"{value * 1e3:+.0f} mV"
-    mode = next(iter(BOUNDS[metric].values()))[0]
+    mode = next(iter(AGREEMENT[metric].values()))[0]
     return f"{value:.1%}" if mode == "rel" else f"{value:.2f}"
 
 

@@ -28,11 +28,10 @@ from ampfront.optimize.simulator.ledger import Ledger
 from ampfront.optimize.simulator.ngspice import DEFAULT_TIMEOUT_S
 from ampfront.optimize.simulator.selection import choose
 from ampfront.optimize.simulator.tasks import LOOP, OPEN_LOOP, STEP, SUFFIX, SWING, Task, make_task
-from ampfront.optimize.simulator.verdict import (AGREES, FIGURES, REJECTION_CEILING_DB, SWING_SHORTFALL_V,
-                                                 SWING_SLACK_V)
+from ampfront.optimize.simulator.verdict import AGREES, FIGURES, REJECTION_CEILING_DB
 from ampfront.optimize.spec.corners import corner_set, evaluate_study
 from ampfront.optimize.spec.study import Study, load_study
-from ampfront.topologies.catalog import AGREEMENT, M, METRICS
+from ampfront.topologies.catalog import AGREEMENT, M, METRICS, SWING_SHORTFALL_V, SWING_SLACK_V
 from ampfront.topologies.errors import InputError
 from ampfront.topologies.process.techfile import file_hash, load
 

@@ -8,8 +8,8 @@ import math
 
 import pandas as pd
 
-from ampfront.optimize.simulator.verdict import AGREES, BOUNDS, DISAGREES
-from ampfront.topologies.catalog import METRICS
+from ampfront.optimize.simulator.verdict import AGREES, DISAGREES
+from ampfront.topologies.catalog import AGREEMENT, METRICS
 
 MARK = {AGREES: "  ", DISAGREES: "XX"}
 
@@ -23,7 +23,7 @@ def _error(row) -> str:
         return ""
     if row["testbench"] == "swing":
         return f"model claims {row['error'] * 1e3:+.0f} mV (slack {row['bound'] * 1e3:.0f} mV)"
-    mode = BOUNDS[row["metric"]]
+    mode = AGREEMENT[row["metric"]]
     if next(iter(mode.values()))[0] == "rel":
         return f"off {row['error']:.1%} (bound {row['bound']:.0%})"
     unit = METRICS[row["metric"]].display_unit or METRICS[row["metric"]].unit

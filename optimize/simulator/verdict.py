@@ -10,32 +10,11 @@ from __future__ import annotations
 import math
 
 from ampfront.optimize.simulator.tasks import LOOP, OPEN_LOOP, STEP, SWING, Outcome, Task
-from ampfront.topologies.catalog import AGREEMENT, M
+from ampfront.topologies.catalog import AGREEMENT, SWING_SHORTFALL_V, SWING_SLACK_V, M
 
 # Rejection of an ideal, unmismatched circuit beyond this is set by residual bias asymmetries, not by the
 # circuit; real parts are limited by mismatch long before. Both sides are compared clipped here.
 REJECTION_CEILING_DB = 100.0
-# Swing from the DC sweep into the load (ngspice.simulate_swing): the model's swing keeps every device of
-# the signal path saturated, so it may end this much short of where the swept gain collapses, and may claim
-# at most SWING_SLACK_V more than the sweep shows.
-SWING_SLACK_V = 0.05
-SWING_SHORTFALL_V = 0.3
-
-# Power is the supply current at the study's supply, so it agrees as the current does.
-BOUNDS = {**AGREEMENT, M.power_w: AGREEMENT[M.supply_current_a]}
-# The application testbench (_loop.sp), until the catalog's AGREEMENT takes them over: the loop's phase
-# margin as the open loop's; the static gain error relative (it is 1 / (1 + A0 beta), so the gain bound in
-# dB sets it: 0.5 dB is 6 %, 3 dB 41 %); settling within the issue's 20 %; the slope where the step slews
-# within its 10 % (where it does not, the slope is not judged: the pair's large-signal gm makes it
-# nonlinear, and the settling time already judges the response).
-LOOP_AGREEMENT = {
-    M.loop_phase_margin_deg: AGREEMENT[M.phase_margin_deg],
-    M.gain_error: {"square_law": ("rel", 0.1), "gm_id_tables": ("rel", 0.5)},
-    M.step_settling_s: {"square_law": ("rel", 0.2), "gm_id_tables": ("rel", 0.2)},
-    M.step_slope_v_per_s: {"square_law": ("rel", 0.1), "gm_id_tables": ("rel", 0.1)},
-}
-BOUNDS.update({k: v for k, v in LOOP_AGREEMENT.items() if k not in BOUNDS})
-
 FIGURES = {
     OPEN_LOOP: (M.gain_db, M.gbw_hz, M.phase_margin_deg, M.supply_current_a, M.power_w, M.noise_1hz_v_rthz,
                 M.noise_100hz_v_rthz, M.cmrr_db, M.psrr_db),
@@ -50,7 +29,7 @@ AGREES, DISAGREES = "agrees", "disagrees"
 
 def agreement(metric: str, kind: str, model: float, simulated: float) -> tuple[float, float, str]:
     """(error, bound, mode): relative or absolute difference, clipped rejection for CMRR and PSRR."""
-    mode, bound = BOUNDS[metric][kind]
+    mode, bound = AGREEMENT[metric][kind]
     if metric in (M.cmrr_db, M.psrr_db):
         model, simulated = min(model, REJECTION_CEILING_DB), min(simulated, REJECTION_CEILING_DB)
     error = abs(simulated - model) if mode == "abs" else abs(simulated - model) / max(abs(model), 1e-30)
