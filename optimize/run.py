@@ -108,7 +108,7 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     table.insert(3, "on_merged_front", merged_front(table, study.objectives) if fronts else False)
     evaluations = sum(o.evaluations for o in outcomes.values())
     summary = RunSummary(final, tech.name, study.seed, evaluations, len(table) if fronts else 0, 0.0, misses)
-    if getattr(tech, "models_missing", None):
+    if tech.models_missing:
         summary.warnings.append(f"testbenches cannot run yet: {tech.models_missing}")
     summary.piles = [p for f in fronts for p in f.piles]
     summary.warnings += [p.describe() for p in summary.piles]

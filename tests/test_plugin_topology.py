@@ -85,3 +85,43 @@ def test_plugin_is_found_listed_and_optimized(plugin_path, tmp_path):
     front = pd.read_csv(tmp_path / "out" / "front.csv")
     assert (front["topology"] == "toy_resistor_ota").all() and len(front) >= 1
     assert (front["gbw_hz"] >= 1e6).all()
+
+
+STAGE_PLUGIN = """
+from ampfront.topologies import ClassABOutput
+
+
+class QuietClassAB(ClassABOutput):
+    \"\"\"A third party's variant of the class-AB stage: its own suffix and title, the same physics.\"\"\"
+
+    suffix = "qab"
+    title = "quiet class-AB output"
+"""
+
+
+def test_a_third_party_output_stage_is_composed_with_every_single_stage_core(tmp_path, monkeypatch):
+    """An output stage installed through `ampfront.output_stages` follows every core that declares
+    single_stage, and the composition evaluates like the built-in one (same physics, so the same figures:
+    the reference is the built-in class-AB composition itself)."""
+    import numpy as np
+
+    from ampfront import topologies
+    from ampfront.topologies.evaluate import evaluate
+    from tests.helpers import DEMO_CONDITIONS, generic180, random_designs
+
+    (tmp_path / "stage_plugin.py").write_text(STAGE_PLUGIN)
+    dist = tmp_path / "stage_plugin-0.1.dist-info"
+    dist.mkdir()
+    (dist / "METADATA").write_text("Metadata-Version: 2.1\nName: stage-plugin\nVersion: 0.1\n")
+    (dist / "entry_points.txt").write_text("[ampfront.output_stages]\nqab = stage_plugin:QuietClassAB\n")
+    monkeypatch.syspath_prepend(str(tmp_path))
+    found = topologies.available()
+    cores = [n for n, t in found.items() if getattr(t, "single_stage", False)]
+    assert cores and all(f"{core}_qab" in found for core in cores)
+    tech = generic180()
+    ours, theirs = found["folded_cascode_ab"], found["folded_cascode_qab"]
+    x = random_designs(ours, tech, 16, seed=4)
+    a, _ = evaluate(ours, x, tech, DEMO_CONDITIONS)
+    b, _ = evaluate(theirs, x, tech, DEMO_CONDITIONS)
+    np.testing.assert_array_equal(a["gain_db"], b["gain_db"])
+    assert "quiet class-AB output" in theirs.title

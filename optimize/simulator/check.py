@@ -81,7 +81,7 @@ def read_result(folder: Path) -> Received:
 
 
 def _kind(tech) -> str:
-    return "gm_id_tables" if getattr(tech, "length_grid", None) is not None else "square_law"
+    return tech.kind
 
 
 def _front(folder: Path, study: Study, tech) -> pd.DataFrame:

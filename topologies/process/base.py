@@ -72,6 +72,11 @@ class Technology(Protocol):
     spice_init: tuple[str, ...]        # lines the netlists' .spiceinit needs (ngspice compatibility mode)
     length_grid: np.ndarray | None     # characterized lengths designs snap to (m), or None: any length
     layout: Layout                     # area and buildability rules
+    # V beyond a device's vdsat before an output's linear range is judged to end there (see SquareLaw and
+    # TableProcess: zero where vdsat is where the model's own gain collapses).
+    saturation_guard: float
+    kind: str                          # "square_law" or "gm_id_tables": which agreement bounds apply
+    models_missing: str | None         # how to install the testbenches' model library, when it is missing
 
     def operating_point(self, polarity: Polarity, w, l, vgs, vds, vsb) -> OperatingPoint: ...
 

@@ -60,6 +60,11 @@ class SquareLaw:
     layout: Layout = Layout()
     # Any length within the limits is drawn (on a 5 nm grid): no characterized set to snap to.
     length_grid = None
+    # Level 1's output conductance is constant up to VDS = VGS - VT and its gain collapses exactly there.
+    saturation_guard = 0.0
+    kind = "square_law"
+    # Level-1 models are written into every netlist: nothing to install.
+    models_missing = None
 
     def quantize_width(self, w):
         return np.asarray(w, float)
