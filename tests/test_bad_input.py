@@ -6,6 +6,8 @@ import textwrap
 
 import pytest
 
+from .clirun import TINY_STUDY
+
 GOOD_SPEC = """
 [spec]
 supply = "1.8 V"
@@ -145,6 +147,36 @@ def test_characterize_out_that_is_a_file(tmp_path):
                            "--lengths", "0.5", "--no-flicker"], capture_output=True, text=True, timeout=120)
     assert proc.returncode == 2 and "--out" in proc.stderr and len(proc.stderr.strip().splitlines()) == 1
     assert target.read_text() == "mine\n"
+
+
+def test_characterize_out_that_cannot_be_created(tmp_path):
+    """Refused before any sweep: /proc takes no new folders."""
+    proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "characterize", "--out", "/proc/ampfront-x",
+                           "--lengths", "0.5", "--no-flicker"], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 2 and "--out" in proc.stderr and "Traceback" not in proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1, proc.stderr
+
+
+@pytest.mark.parametrize("seed", ["-1", "abc", "1e30"])
+def test_bad_seed_on_the_command_line(seed, tmp_path):
+    study = tmp_path / "study.toml"
+    study.write_text(TINY_STUDY)
+    proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "run", str(study), "--out", str(tmp_path / "out"),
+                           "--seed", seed], capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 2 and "--seed" in proc.stderr and "Traceback" not in proc.stderr, proc.stderr
+    assert len(proc.stderr.strip().splitlines()) == 1, proc.stderr
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_clean_run_prints_no_warnings(tmp_path):
+    """Numerical warnings from designs the search tries and rejects (NaN, overflow) are not the user's
+    business: a successful run's stderr holds only ampfront's own lines."""
+    study = tmp_path / "study.toml"
+    study.write_text(TINY_STUDY.replace('topologies = ["simple_ota"]', 'topologies = ["folded_cascode_ab", "two_stage_miller"]'))
+    proc = subprocess.run([sys.executable, "-m", "ampfront.optimize", "run", str(study), "--out", str(tmp_path / "out")],
+                          capture_output=True, text=True, timeout=300)
+    assert proc.returncode in (0, 3), proc.stderr
+    assert "Warning" not in proc.stderr and "warn(" not in proc.stderr, proc.stderr
 
 
 @pytest.mark.spice

@@ -12,6 +12,8 @@ import sys
 import time
 from pathlib import Path
 
+import pytest
+
 from ampfront import topologies
 
 STUDY = """
@@ -90,12 +92,21 @@ def _settle(proc, tmp_path, seconds=5.0):
     return stderr
 
 
-def test_ctrl_c_stops_every_worker(tmp_path):
+@pytest.mark.parametrize("to_group", [True, False], ids=["process_group", "process_alone"])
+def test_ctrl_c_stops_every_worker(to_group, tmp_path):
+    """The issue's bound: every process of the run gone within 5 s of the signal, whether a terminal sends it
+    to the whole group or a supervisor to the main process alone."""
     proc, _ = _start(tmp_path)
+    everyone = _descendants(proc.pid) | {proc.pid}
     sent = time.monotonic()
-    os.killpg(proc.pid, signal.SIGINT)     # what a terminal's Ctrl-C does
-    proc.wait(timeout=30)
-    assert time.monotonic() - sent < 10, "the run went on after Ctrl-C"
+    if to_group:
+        os.killpg(proc.pid, signal.SIGINT)     # what a terminal's Ctrl-C does
+    else:
+        os.kill(proc.pid, signal.SIGINT)
+    while _alive(everyone) and time.monotonic() - sent < 5.0:
+        proc.poll()
+        time.sleep(0.05)
+    assert not _alive(everyone), "processes still running 5 s after Ctrl-C"
     stderr = _settle(proc, tmp_path)
     assert proc.returncode == 130
     assert len(stderr.strip().splitlines()) == 1 and "interrupted" in stderr, stderr
@@ -108,3 +119,16 @@ def test_killed_worker_is_one_line(tmp_path):
     stderr = _settle(proc, tmp_path)
     assert proc.returncode == 1
     assert len(stderr.strip().splitlines()) == 1 and "stopped without a result" in stderr, stderr
+
+
+def test_killed_run_takes_its_workers_with_it(tmp_path):
+    """SIGKILL of the main process (nothing of ampfront's runs to clean up): its search processes stop by
+    themselves within 5 s instead of searching on for nobody."""
+    proc, _ = _start(tmp_path)
+    everyone = _descendants(proc.pid)
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait(timeout=30)
+    sent = time.monotonic()
+    while _alive(everyone) and time.monotonic() - sent < 5.0:
+        time.sleep(0.05)
+    assert not _alive(everyone), "search processes still running 5 s after their run was killed"

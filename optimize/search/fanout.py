@@ -2,7 +2,8 @@
 
 Ctrl-C reaches the whole process group: workers ignore it and the parent alone decides, terminating every
 worker within a second or two before the KeyboardInterrupt goes on up, so no worker carries on with the next topology. A
-worker that dies (killed, out of memory) is reported as WorkerLost, never as a traceback.
+worker that dies (killed, out of memory) is reported as WorkerLost, never as a traceback; a parent that dies
+takes its workers with it.
 """
 
 from __future__ import annotations
@@ -11,6 +12,8 @@ import multiprocessing
 import os
 import queue as queue_module
 import signal
+import threading
+import time
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from concurrent.futures.process import BrokenProcessPool
 from typing import Callable
@@ -29,6 +32,15 @@ def _init_worker(relay) -> None:
     global _relay
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _relay = relay
+    threading.Thread(target=_exit_with_parent, args=(os.getppid(),), daemon=True).start()
+
+
+def _exit_with_parent(parent: int) -> None:
+    """A parent killed outright (SIGKILL, out of memory) cannot stop its workers; they notice it is gone
+    (they are handed to another parent) and stop, instead of searching on for nobody."""
+    while os.getppid() == parent:
+        time.sleep(0.25)
+    os._exit(1)
 
 
 def _worker(study, name: str) -> Outcome:
