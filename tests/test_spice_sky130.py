@@ -20,7 +20,9 @@ def test_sky130_front_designs_match_bsim4(demo_run, tmp_path):
     (tmp_path / "manifest.json").symlink_to(demo_run / "manifest.json")
     table = check_folder(tmp_path, 5)
     assert len(table) == 5
-    for column, (kind, bound) in ((m, a["gm_id_tables"]) for m, a in AGREEMENT.items()):
+    judged = [m for m in AGREEMENT if f"{m}_model" in table]   # the loop testbench's only with an application
+    assert {"gain_db", "gbw_hz", "phase_margin_deg", "supply_current_a", "overshoot_pct"} <= set(judged), judged
+    for column, (kind, bound) in ((m, AGREEMENT[m]["gm_id_tables"]) for m in judged):
         model, spice = table[f"{column}_model"], table[f"{column}_spice"]
         error = (spice - model).abs() if kind == "abs" else ((spice - model) / model).abs()
         assert (error <= bound).all(), (column, list(zip(table["design"], model, spice)))
@@ -51,7 +53,9 @@ def test_corner_designs_match_bsim4_at_their_temperature(corner, tmp_path):
     (tmp_path / "corner.toml").write_text(text)
     run_study(tmp_path / "corner.toml", tmp_path / "out")
     table = check_folder(tmp_path / "out", 3)
-    for column, (kind, bound) in ((m, a["gm_id_tables"]) for m, a in AGREEMENT.items()):
+    judged = [m for m in AGREEMENT if f"{m}_model" in table]   # the loop testbench's only with an application
+    assert {"gain_db", "gbw_hz", "phase_margin_deg", "supply_current_a", "overshoot_pct"} <= set(judged), judged
+    for column, (kind, bound) in ((m, AGREEMENT[m]["gm_id_tables"]) for m in judged):
         if column == "cmrr_db":
             continue  # see DEVELOPERS.md: the ideal circuit's CMRR is not held to the bound on SKY130 corners
         model, spice = table[f"{column}_model"], table[f"{column}_spice"]

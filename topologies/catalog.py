@@ -255,6 +255,9 @@ RULES: dict[str, Rule] = {r.key: r for r in (
          "the DC operating point satisfies KCL to 0.1 % of the supply current"),
     Rule("min_reference_current", "reference_ratio", "min", 1.0, 1.0,
          "no bias reference below the technology's min_reference_current (leakage, mirror matching)"),
+    Rule("drives_both_ways", "peak_out_a", "min", 0.0, 1e-6,
+         "the output can both source and sink current into the load from the common mode (a class-AB stage "
+         "whose core cannot drive one of its gates far enough cannot)"),
     Rule("open_loop_stable", "rhp_poles", "max", 0.0, 1.0,
          "an open loop with right-half-plane poles is unstable whatever its phase margin reads"),
     Rule("closed_loop_stable", "cl_rhp_poles", "max", 0.0, 1.0,

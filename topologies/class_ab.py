@@ -197,13 +197,13 @@ class ClassABOutput:
             need = np.maximum(load(v) + np.nan_to_num(down(gn_low, v)), floor)
             vsg = tech.vgs_for_current("p", w_up, l, need, vdd - v, zero)
             vdsat = tech.operating_point("p", w_up, l, vsg, vdd - v, zero).vdsat
-            return np.minimum(vdd - gp_low - vsg, vdd - v - vdsat)
+            return np.minimum(vdd - gp_low - vsg, vdd - v - vdsat - tech.saturation_guard)
 
         def low_room(v):
             need = np.maximum(-load(v) + np.nan_to_num(up(vdd - gp_high, v)), floor)
             vgs = tech.vgs_for_current("n", w_dn, l, need, v, zero)
             vdsat = tech.operating_point("n", w_dn, l, vgs, v, zero).vdsat
-            return np.minimum(gn_high - vgs, v - vdsat)
+            return np.minimum(gn_high - vgs, v - vdsat - tech.saturation_guard)
 
         out_high = bisect_decreasing(high_room, vout, zero + vdd, 20)
         out_low = bisect_decreasing(lambda v: -low_room(v), zero, vout, 20, nan_above=vout)

@@ -134,8 +134,8 @@ class FoldedCascode:
             # Fully steered, the output branch gets at most the smaller of tail and folding current.
             "peak_source_a": np.minimum(i5, i_src),
             "peak_sink_a": np.minimum(i5, i_src),
-            "out_high_v": fb - op["cascode_p_b"].op.vdsat,
-            "out_low_v": nb2 + op["cascode_n_b"].op.vdsat,
+            "out_high_v": fb - op["cascode_p_b"].op.vdsat - tech.saturation_guard,
+            "out_low_v": nb2 + op["cascode_n_b"].op.vdsat + tech.saturation_guard,
             "cm_low_v": tail.op.vdsat + vgs1,
             "cm_high_v": fa + op["input_pair_a"].op.vth,
             "offset_sys_v": vgs2 - vgs1,

@@ -34,9 +34,9 @@ class SimpleOTA:
             "slew_v_per_s": fig["i_tail"] / cond.c_load,
             "peak_source_a": fig["i_tail"],
             "peak_sink_a": fig["i_tail"],
-            "out_high_v": vdd - load_out.op.vdsat,
+            "out_high_v": vdd - load_out.op.vdsat - tech.saturation_guard,
             # Lowest output keeping the output-side input device saturated, with the tail at its bias.
-            "out_low_v": (vcm - fig["vgs_in"]) + out_pair.op.vdsat,
+            "out_low_v": (vcm - fig["vgs_in"]) + out_pair.op.vdsat + tech.saturation_guard,
             "cm_low_v": fig["cm_low_v"],
             "cm_high_v": fig["cm_high_v"],
             "offset_sys_v": fig["offset_sys_v"],
