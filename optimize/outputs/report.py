@@ -189,7 +189,7 @@ shown. Click a design for its figures.</p>
 <aside id="selected" class="selected" hidden><h4 id="sel-title"></h4><div id="sel-body"></div></aside>
 </section>
 <section id="cards"><h2>Design cards</h2>
-<p>Each topology's knee and its best designs on the verdict's objectives. Netlists are in
+<p>Each topology's knee and its best design on every objective (one card per design). Netlists are in
 <code>netlists/&lt;design&gt;.sp</code>, every figure in <code>front.csv</code>.</p>
 {''.join(card_html)}</section>
 {corner_spread_html(df, titles)}
