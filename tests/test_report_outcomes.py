@@ -10,13 +10,14 @@ closest.csv; the Pareto definition of a knee and extremes (by construction).
 
 import json
 import re
+import shutil
 
 import numpy as np
 import pandas as pd
 import pytest
 
 from ampfront import topologies
-from ampfront.optimize.outputs import cards, report
+from ampfront.optimize.outputs import cards
 from ampfront.optimize.outputs.refresh import refresh
 from ampfront.optimize.run import run_study
 from ampfront.optimize.search.outcome import STABILITY_RULES
@@ -83,7 +84,7 @@ def test_an_infeasible_topology_beside_a_feasible_one_shows_its_closest_figures(
     assert all(cell != "–" and cell.endswith("†") for cell in ota[4:7]), ota
     shortfall = 60 - closest[M.gain_db].max()
     assert f"{shortfall:.3g} dB short of 60 dB" in ota[7], ota
-    assert f"No design of Five-transistor OTA meets the spec: minimum DC gain" in page
+    assert "No design of Five-transistor OTA meets the spec: minimum DC gain" in page
     assert "meets no design" not in page
 
 
@@ -97,7 +98,6 @@ def test_manifest_records_misses_as_data_and_refresh_reads_them(mixed, tmp_path)
     assert record["text"].startswith("simple_ota: no design met the spec")
     # The report written again from the folder takes the record, not the text: a record edited to another
     # value shows that value.
-    import shutil
     copy = tmp_path / "copy"
     shutil.copytree(out, copy)
     record["misses"][0]["value"] = 50.0
