@@ -87,12 +87,14 @@ def _verdict_html(v: Verdict, objectives, feasible: bool) -> str:
         rows.append(f"<tr class='{'ok' if s.feasible else 'bad'}'><th>{html.escape(s.title)}</th>"
                     f"<td>{state}{refused}</td><td>{count}</td><td>{s.merged}</td>{best}<td>{binds}</td></tr>")
     notes = "".join(f"<li>{html.escape(n)}</li>" for n in v.notes)
+    # Beside a feasible front the plot holds only designs that meet the spec; with none, it holds these.
+    drawn = " (in closest.csv, not drawn on the plot)" if feasible else " (drawn hollow on the plot)"
     return (f"<p class='sentence' id='sentence'>{html.escape(v.sentence)}</p>"
             + (f"<ul class='notes'>{notes}</ul>" if notes else "")
             + "<table id='verdict-table'><thead><tr><th>Topology</th><th>Status</th><th>Designs</th>"
               f"<th>On merged front</th>{heads}<th>What binds, by how much</th></tr></thead><tbody>"
             + "".join(rows) + "</tbody></table><p class='fine'>★ best of all topologies on that objective. "
-              "† of the topology's closest designs, which do not meet the spec (not drawn on the plot). "
+              f"† of the topology's closest designs, which do not meet the spec{drawn}. "
               "“Binds”: for a topology that meets the spec, the spec line most of its front presses against; "
               "for one that does not, what its closest design misses and by how much. Designs the stability "
               "rules refused are counted over every design the search evaluated.</p>")
