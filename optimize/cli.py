@@ -215,8 +215,11 @@ def main_with(args: list[str]) -> None:
 
 
 @app.command()
-def report(folder: Path = typer.Argument(..., help="a folder written by 'ampfront run'")) -> None:
+def report(folder: Path = typer.Argument(..., help="a folder written by 'ampfront run'"),
+           figures: bool = typer.Option(False, "--figures", help="also write every plot as a static SVG into "
+                                        "FOLDER/figures/ (for slides; uses the system Chromium)")) -> None:
     """Write FOLDER's report.html again from its own data, with ngspice's figures once check.csv is there."""
+    from ampfront.optimize.outputs.figures import FiguresError, write_figures
     from ampfront.optimize.outputs.refresh import refresh
 
     try:
@@ -224,3 +227,9 @@ def report(folder: Path = typer.Argument(..., help="a folder written by 'ampfron
     except (InputError, PluginError) as error:
         _fail(str(error), 2)
     _say(f"report -> {path}")
+    if figures:
+        try:
+            written = write_figures(folder)
+        except FiguresError as error:
+            _fail(str(error), 1)
+        _say(f"{len(written)} figures -> {folder / 'figures'}")

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import os
 import time
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 from pathlib import Path
 from typing import Callable
 
@@ -14,7 +14,8 @@ import pandas as pd
 
 from ampfront import topologies
 from ampfront.optimize.outputs import netlist, report
-from ampfront.optimize.outputs.folder import TOOL_MARK, check_destination, staged_directory, written_files
+from ampfront.optimize.outputs.folder import CLOSEST, TOOL_MARK, check_destination, staged_directory, written_files
+from ampfront.optimize.outputs.summary import RunSummary
 from ampfront.optimize.outputs.tables import device_table, versions, write_json
 from ampfront.optimize.search.engine import Progress
 from ampfront.optimize.search.merge import merged_front
@@ -25,24 +26,7 @@ from ampfront.optimize.spec.study import Study, load_study
 from ampfront.topologies.catalog import M
 from ampfront.topologies.process.techfile import file_hash, load
 
-MANIFEST_FORMAT = "ampfront-result/2"
-
-
-@dataclass
-class RunSummary:
-    out: Path
-    technology: str
-    seed: int
-    evaluations: int
-    front_designs: int
-    wall_s: float
-    infeasible: dict[str, Infeasible] = field(default_factory=dict)
-    warnings: list[str] = field(default_factory=list)
-    piles: list = field(default_factory=list)     # search.bounds.Pile
-
-    @property
-    def feasible(self) -> bool:
-        return self.front_designs > 0
+MANIFEST_FORMAT = "ampfront-result/3"   # 3: infeasible topologies as records
 
 
 def write_netlists(folder: Path, study: Study, tech, name: str, table: pd.DataFrame, build, corners=None) -> None:
@@ -106,17 +90,28 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     table = pd.concat(tables, ignore_index=True).copy()
     table.insert(2, "meets_spec", bool(fronts))
     table.insert(3, "on_merged_front", merged_front(table, study.objectives) if fronts else False)
+    # Beside a feasible front, the topologies that met nothing keep their closest designs in closest.csv
+    # (front.csv stays the designs that meet the spec), so the verdict can say how near they came.
+    closest = None
+    if fronts and misses:
+        closest = pd.concat([o.closest for o in misses.values()], ignore_index=True).copy()
+        closest.insert(2, "meets_spec", False)
+        closest.insert(3, "on_merged_front", False)
     evaluations = sum(o.evaluations for o in outcomes.values())
     summary = RunSummary(final, tech.name, study.seed, evaluations, len(table) if fronts else 0, 0.0, misses)
+    summary.rejected = {n: o.rejected for n, o in outcomes.items()}
     if tech.models_missing:
         summary.warnings.append(f"testbenches cannot run yet: {tech.models_missing}")
     summary.piles = [p for f in fronts for p in f.piles]
     summary.warnings += [p.describe() for p in summary.piles]
     with staged_directory(final) as stage:
         table.to_csv(stage / "front.csv", index=False, float_format="%.9g")
+        if closest is not None:
+            closest.to_csv(stage / CLOSEST, index=False, float_format="%.9g")
         summary.wall_s = time.perf_counter() - started
         builds = {outcome.name: outcome.build for outcome in chosen}
-        (stage / "report.html").write_text(report.render(table, study, tech.name, summary, builds), encoding="utf-8")
+        (stage / "report.html").write_text(report.render(table, study, tech.name, summary, builds,
+                                                        closest=closest), encoding="utf-8")
         for outcome in chosen:
             rows = table[table["topology"] == outcome.name]
             write_netlists(stage / "netlists", study, tech, outcome.name, rows, outcome.build, outcome.corners)
@@ -149,7 +144,10 @@ def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:
         "population": study.population, "generations": study.generations,
         "evaluations": summary.evaluations, "wall_time_s": round(wall, 3),
         "front_designs": summary.front_designs,
-        "infeasible_topologies": {n: o.describe() for n, o in summary.infeasible.items()},
+        # Each as data (constraint, metric, sense, value, bound) beside its readable line.
+        "infeasible_topologies": {n: o.record() for n, o in summary.infeasible.items()},
+        # Per topology, the evaluated designs each stability rule refused (issue 15: why a design is absent).
+        "rejected_by_stability": {n: r.record() for n, r in summary.rejected.items()},
         # Variables at whose search bound most of a front sits: the box, not physics, limits it there.
         "at_search_bounds": [p.record() for p in summary.piles],
         "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),

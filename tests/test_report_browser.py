@@ -113,6 +113,23 @@ def _painted(png: bytes) -> float:
     return 1 - sum(hist[245:]) / (image.width * image.height)
 
 
+# What plotly.js drew, read from the DOM it built: markers are `path.point` inside a scatter layer (shading
+# and spec lines are layout shapes, elsewhere), lines are `path.js-line` with a non-empty outline.
+POINTS = "(id) => document.querySelectorAll('#' + id + ' .scatterlayer .point').length"
+LINES = ("(id) => Array.from(document.querySelectorAll('#' + id + ' .scatterlayer path.js-line'))"
+         ".filter(p => (p.getAttribute('d') || '').length > 10).length")
+
+
+def _assert_drawn(page):
+    """The trade-off plot has markers, every Bode plot has lines (spec shading alone would not pass)."""
+    assert page.evaluate(POINTS, "plot-tradeoff") > 0, "no design drawn on the trade-off plot"
+    bodes = page.evaluate("Array.from(document.querySelectorAll('.js-plotly-plot'))"
+                             ".map(e => e.id).filter(i => i.startsWith('plot-bode'))")
+    for div in bodes:
+        assert page.evaluate(LINES, div) >= 2, f"{div}: no magnitude and phase curves"
+    return len(bodes)
+
+
 def _check_page(opened: Opened):
     page = opened.page
     assert not opened.errors, opened.errors
@@ -123,6 +140,7 @@ def _check_page(opened: Opened):
         plot = plots.nth(k)
         plot.scroll_into_view_if_needed()
         assert _painted(plot.screenshot()) > 0.02, f"plot {k} is blank"
+    _assert_drawn(page)
     assert page.locator("#verdict-table tbody tr").count() == 2
     assert page.locator("#caution").inner_text().startswith("Pre-layout estimates")
 
@@ -138,6 +156,7 @@ def test_demo_report_opens_offline_and_every_plot_is_drawn(browser, demo_run):
             plot = plots.nth(k)
             plot.scroll_into_view_if_needed()
             assert _painted(plot.screenshot()) > 0.02, f"plot {k} is blank"
+        assert _assert_drawn(page) >= 3      # a card, with its Bode plot, per topology at least
         rows = page.locator("#verdict-table tbody tr")
         assert rows.count() == 4
         assert page.locator("#sentence").inner_text().strip()
@@ -163,7 +182,28 @@ def test_menu_change_redraws_the_trade_off_plot(browser, demo_run):
         after_title = page.evaluate(TITLES)
         assert after_title != before_title
         after = plot.screenshot()
-        assert after != before and _painted(after) > 0.02
+        assert after != before and page.evaluate(POINTS, "plot-tradeoff") > 0
+        assert not opened.errors, opened.errors
+    finally:
+        opened.close()
+
+
+def test_clicking_a_design_fills_the_design_panel(browser, demo_run):
+    opened = Opened(browser, demo_run)
+    try:
+        page = opened.page
+        panel = page.locator("#selected")
+        assert panel.is_hidden()
+        point = page.locator("#plot-tradeoff .scatterlayer .point").first
+        point.scroll_into_view_if_needed()
+        box = point.bounding_box()
+        # A real mouse click at the marker's centre: plotly.js finds the point under it and emits plotly_click.
+        page.mouse.click(box["x"] + box["width"] / 2, box["y"] + box["height"] / 2)
+        page.wait_for_function("!document.getElementById('selected').hidden", timeout=5000)
+        title = page.locator("#sel-title").inner_text()
+        design = title.split(" · ")[-1]
+        assert design and design in page.locator("#designs").inner_text()
+        assert page.locator("#sel-body tr").count() > 5
         assert not opened.errors, opened.errors
     finally:
         opened.close()

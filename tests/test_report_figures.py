@@ -73,3 +73,32 @@ def test_menu_offers_every_pair_with_engineering_ticks(figure):
     xs = sorted(v for trace in gain_vs_power["args"][0]["x"] for v in trace)
     assert np.allclose(xs[0], df[M.power_w].min()) and gain_vs_power["args"][1]["xaxis"]["type"] == "log"
     assert any(t.endswith("µW") for t in gain_vs_power["args"][1]["xaxis"]["ticktext"])
+
+
+def test_markup_in_a_plug_in_title_reaches_plotly_as_text():
+    # plotly.js renders <b>, <i>, <a> in trace names and legend; an escaped title shows its brackets instead.
+    df = pd.DataFrame({"topology": ["probe"] * 3, "design": ["p1", "p2", "p3"], "meets_spec": True,
+                       "on_merged_front": [True, False, False], M.power_w: [1e-5, 2e-5, 3e-5],
+                       M.gbw_hz: [1e6, 3e6, 9e6], M.gain_db: [60.0, 61.0, 62.0]})
+    title = "<b>Bold</b> <a href='x'>amp</a>"
+    fig = plots.front_figure(df, OBJECTIVES, CONSTRAINTS, {"probe": title}, ("probe",), {"probe": "p2"},
+                             shown=SHOWN).to_plotly_json()
+    names = [t["name"] for t in fig["data"]]
+    assert names and all(n.startswith("&lt;b&gt;Bold&lt;/b&gt; &lt;a href=&#x27;x&#x27;&gt;amp&lt;/a&gt; · ")
+                         for n in names), names
+    assert not any("<" in n for n in names)
+    assert all("<b>Bold" not in text for t in fig["data"] for text in t["text"])
+
+
+def test_closest_designs_of_an_infeasible_study_are_named_so_and_the_verdict_axes_come_first():
+    from ampfront.optimize.outputs.verdict import sentence_axes
+
+    df = pd.DataFrame({"topology": ["alpha"] * 3, "design": ["a1", "a2", "a3"], "meets_spec": False,
+                       "on_merged_front": False, M.power_w: [1e-5, 2e-5, 3e-5], M.gbw_hz: [1e6, 3e6, 9e6],
+                       M.gain_db: [60.0, 61.0, 62.0]})
+    fig = plots.front_figure(df, OBJECTIVES, CONSTRAINTS, {"alpha": "Alpha"}, ("alpha",), {"alpha": "a2"},
+                             first=sentence_axes(OBJECTIVES), shown=SHOWN).to_plotly_json()
+    names = {t["name"] for t in fig["data"]}
+    assert "Alpha · closest designs, missing the spec" in names and not any("own front" in n for n in names)
+    # The verdict reads GBW (more wanted) against power (paid): the page opens on power vs GBW.
+    assert fig["layout"]["updatemenus"][0]["buttons"][0]["label"] == "Power vs GBW"

@@ -11,7 +11,7 @@ import pandas as pd
 from ampfront.optimize.outputs.knee import knee
 from ampfront.optimize.outputs.verdict import verdict
 from ampfront.optimize.search.merge import merged_front
-from ampfront.optimize.search.outcome import Miss
+from ampfront.optimize.search.outcome import Infeasible, Miss
 from ampfront.optimize.spec.study import Constraint
 from ampfront.topologies.catalog import M
 
@@ -67,8 +67,9 @@ def test_infeasible_study_names_what_binds_and_by_how_much(tmp_path):
     rows = _front("alpha", np.array([3e6, 4e6]), np.array([2e-3, 3e-3]))
     rows["meets_spec"] = False
     front = _through_csv(rows, tmp_path)
-    records = {"alpha": type("R", (), {"misses": (Miss("max_power", M.power_w, "max", 2e-3, 1e-3),)})(),
-               "beta": type("R", (), {"misses": (Miss("min_gbw", M.gbw_hz, "min", 0.99e6, 1e6),)})()}
+    records = {"alpha": Infeasible("alpha", (Miss("max_power", M.power_w, "max", 2e-3, 1e-3),), front, None, 2, []),
+               "beta": Infeasible("beta", (Miss("min_gbw", M.gbw_hz, "min", 0.99e6, 1e6),), front.iloc[0:0], None, 2,
+                                  [])}
     v = verdict(front, OBJECTIVES, CONSTRAINTS, ("alpha", "beta"), TITLES, records)
     assert v.sentence.startswith("No topology meets the whole spec")
     # Beta misses by 1 %, alpha by 100 %: beta is the nearer and is named first.

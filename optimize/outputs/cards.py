@@ -15,9 +15,6 @@ from ampfront.topologies.base import Build, Conditions
 from ampfront.topologies.catalog import M, METRICS, OBJECTIVES, RULES, metric
 from ampfront.topologies.units import eng
 
-# A card is a whole page of figures: this many per topology keeps the report quick to write and to read.
-PER_TOPOLOGY = 3
-
 
 @dataclass(frozen=True)
 class Pick:
@@ -28,7 +25,8 @@ class Pick:
 
 
 def picks(table: pd.DataFrame, name: str, objectives, axes: tuple[str, str] | None) -> list[Pick]:
-    """The knee, then the best design on each of the verdict's two objectives, then on the others."""
+    """The knee, then the best design on each of the verdict's two objectives, then on the others: one card
+    per design, however many of these roles it plays (at most one more than the objectives)."""
     rows = table[table["topology"] == name].reset_index(drop=True)
     if rows.empty:
         return []
@@ -46,7 +44,7 @@ def picks(table: pd.DataFrame, name: str, objectives, axes: tuple[str, str] | No
             continue
         seen[position] = [why]
         out.append(position)
-    return [Pick(name, p, str(rows.loc[p, "design"]), " and ".join(seen[p])) for p in out[:PER_TOPOLOGY]]
+    return [Pick(name, p, str(rows.loc[p, "design"]), " and ".join(seen[p])) for p in out]
 
 
 def _figures(row: pd.Series, constraints) -> str:

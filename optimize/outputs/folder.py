@@ -18,9 +18,10 @@ from pathlib import Path
 from ampfront.topologies.errors import InputError
 
 MANIFEST = "manifest.json"
+CLOSEST = "closest.csv"   # beside a feasible front: the closest designs of the topologies that met nothing
+FIGURES = "figures"       # static SVGs of the report's plots, for slides
 # Everything `ampfront run` and `ampfront check` write into a result folder.
-OWN_ENTRIES = frozenset({MANIFEST, "front.csv", "report.html", "netlists", "check.csv", "closest.csv",
-                         "figures"})
+OWN_ENTRIES = frozenset({MANIFEST, "front.csv", "report.html", "netlists", "check.csv", CLOSEST, FIGURES})
 TOOL_MARK = "ampfront"
 
 

@@ -15,6 +15,7 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from ampfront.optimize.outputs.axes import axis, span
+from ampfront.optimize.outputs.verdict import flag
 from ampfront.topologies.catalog import METRICS, OBJECTIVES
 
 COLOURS = ["#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#000000", "#F0E442"]
@@ -86,7 +87,8 @@ def _plain(column: pd.Series) -> list:
 def front_figure(df: pd.DataFrame, objectives, constraints, titles: dict[str, str], order, knees: dict[str, str],
                  first: tuple[str, str] | None = None, shown=()) -> go.Figure:
     """`order`: the study's topologies (fixes colours); `knees`: topology -> knee design name."""
-    merged = df["on_merged_front"].to_numpy(bool) if "on_merged_front" in df else np.zeros(len(df), bool)
+    merged = flag(df["on_merged_front"]) if "on_merged_front" in df else np.zeros(len(df), bool)
+    meets = flag(df["meets_spec"]) if "meets_spec" in df else np.ones(len(df), bool)
     pairs = list(permutations(objectives, 2))
     if first in pairs:
         pairs.remove(first)
@@ -97,12 +99,16 @@ def front_figure(df: pd.DataFrame, objectives, constraints, titles: dict[str, st
         if not mine.any():
             continue
         colour, shape = style(k)
-        title = titles.get(name, name)
+        # plotly.js reads trace names, legend and menu text as its own subset of HTML: a plug-in's title
+        # is escaped so that markup in it shows as text.
+        title = html.escape(titles.get(name, name))
         for on, suffix in ((True, ""), (False, "-open")):
             group = df[mine & (merged == on)]
             if not len(group):
                 continue
-            label = f"{title} · {'on merged front' if on else 'own front only'}"
+            role = ("on merged front" if on else "own front only" if meets[mine & (merged == on)].all()
+                    else "closest designs, missing the spec")
+            label = f"{title} · {role}"
             traces.append(go.Scatter(
                 mode="markers", name=label, legendgroup=name, text=hover(group, titles, shown), hoverinfo="text",
                 customdata=group["design"].astype(str).tolist(),
@@ -121,7 +127,7 @@ def front_figure(df: pd.DataFrame, objectives, constraints, titles: dict[str, st
     buttons = []
     for x_obj, y_obj in pairs:
         data, layout = _view(df, groups, constraints, x_obj, y_obj)
-        label = f"{METRICS[OBJECTIVES[y_obj].metric].label} vs {METRICS[OBJECTIVES[x_obj].metric].label}"
+        label = html.escape(f"{METRICS[OBJECTIVES[y_obj].metric].label} vs {METRICS[OBJECTIVES[x_obj].metric].label}")
         buttons.append(dict(label=label, method="update", args=[data, layout]))
     data, layout = _view(df, groups, constraints, *pairs[0])
     for trace, x, y in zip(fig.data, data["x"], data["y"]):

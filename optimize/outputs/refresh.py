@@ -5,27 +5,18 @@ the folder records, exactly as `check` rebuilds them; nothing in the folder is r
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass
 from pathlib import Path
-from types import SimpleNamespace
+
+import pandas as pd
 
 from ampfront import topologies
 from ampfront.optimize.outputs import report
 from ampfront.optimize.outputs.checked import read_check
-from ampfront.optimize.outputs.folder import MANIFEST, write_text_atomic
+from ampfront.optimize.outputs.folder import CLOSEST, MANIFEST, write_text_atomic
+from ampfront.optimize.outputs.summary import RunSummary
 from ampfront.optimize.outputs.tables import design_vectors
-from ampfront.optimize.outputs.verdict import flag
-
-
-@dataclass(frozen=True)
-class Described:
-    """A topology the run found no feasible design for, as the manifest words it (no typed misses)."""
-
-    text: str
-    misses: tuple = ()
-
-    def describe(self) -> str:
-        return self.text
+from ampfront.optimize.search.outcome import Infeasible, Rejections
+from ampfront.topologies.errors import InputError
 
 
 def refresh(folder: Path) -> Path:
@@ -39,15 +30,28 @@ def refresh(folder: Path) -> Path:
         rows = front[front["topology"] == name]
         _, builds[name] = topologies.evaluate(topologies.available()[name], design_vectors(rows), tech,
                                               study.conditions)
-    said = manifest.get("infeasible_topologies") or {}
-    summary = SimpleNamespace(
-        technology=tech.name, seed=study.seed, evaluations=int(manifest.get("evaluations") or 0),
-        front_designs=int(manifest.get("front_designs") or 0), wall_s=float(manifest.get("wall_time_s") or 0.0),
-        # The manifest words it "<name>: no design met the spec; the closest misses ..."; the verdict names the
-        # topology itself.
-        infeasible={n: Described(str(t).split("; the closest misses ", 1)[-1]) for n, t in said.items()
-                    if isinstance(n, str)}, warnings=[],
-        feasible=bool(flag(front["meets_spec"]).any()) if "meets_spec" in front else bool(manifest.get("feasible")))
-    page = report.render(front, study, tech.name, summary, builds, read_check(folder))
+    closest = _closest(folder)
+    summary = RunSummary(
+        folder, tech.name, study.seed, int(manifest.get("evaluations") or 0), int(manifest.get("front_designs") or 0),
+        float(manifest.get("wall_time_s") or 0.0))
+    for name, record in (manifest.get("infeasible_topologies") or {}).items():
+        # Results of format 2 held only the readable line: the verdict then reads the closest rows' margins.
+        if isinstance(record, dict):
+            pool = closest if closest is not None else front
+            summary.infeasible[name] = Infeasible.from_record(name, record, pool[pool["topology"] == name])
+    for name, record in (manifest.get("rejected_by_stability") or {}).items():
+        if isinstance(record, dict):
+            summary.rejected[name] = Rejections.from_record(record)
+    page = report.render(front, study, tech.name, summary, builds, read_check(folder), closest=closest)
     write_text_atomic(folder / "report.html", page)
     return folder / "report.html"
+
+
+def _closest(folder: Path) -> pd.DataFrame | None:
+    path = folder / CLOSEST
+    if not path.is_file():
+        return None
+    try:
+        return pd.read_csv(path, dtype={"topology": str, "design": str})
+    except (pd.errors.EmptyDataError, pd.errors.ParserError, UnicodeDecodeError, ValueError):
+        raise InputError(str(path), CLOSEST, "the table 'ampfront run' writes") from None

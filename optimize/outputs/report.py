@@ -17,8 +17,9 @@ from plotly.offline import get_plotlyjs
 
 from ampfront.optimize.outputs import cards, plots
 from ampfront.optimize.outputs.knee import KNEE_NAME
+from ampfront.optimize.outputs.summary import RunSummary
 from ampfront.optimize.outputs.spread import corner_spread_html
-from ampfront.optimize.outputs.verdict import Verdict, flag, verdict
+from ampfront.optimize.outputs.verdict import Verdict, flag, sentence_axes, verdict
 from ampfront.optimize.spec.study import Study
 from ampfront.topologies.catalog import M, METRICS, OBJECTIVES, format_spec, spec_label
 
@@ -73,22 +74,39 @@ def _verdict_html(v: Verdict, objectives, feasible: bool) -> str:
     for s in v.standings:
         state = "meets spec" if s.feasible else ("no design meets spec" if feasible or not s.designs
                                                  else "closest designs only")
-        best = "".join(f"<td class='{'lead' if o in s.leads else ''}'>{html.escape(s.best.get(o, '–'))}"
-                       f"{' ★' if o in s.leads else ''}</td>" for o in objectives)
+        mark = " ★" if s.feasible else (" †" if s.closest else "")
+        best = "".join(f"<td class='{'lead' if o in s.leads else 'closest' if s.closest else ''}'>"
+                       f"{html.escape(s.best.get(o, '–'))}{mark if o in s.leads or s.closest else ''}</td>"
+                       for o in objectives)
+        count = f"{s.designs} closest †" if s.closest else str(s.designs)
         binds = html.escape(s.binding)
         if len(s.misses) > 1:
             binds += "<details><summary>all misses</summary><ul>" + "".join(
                 f"<li>{html.escape(m)}</li>" for m in s.misses) + "</ul></details>"
+        refused = "".join(f"<div class='rejected'>{html.escape(r)}</div>" for r in s.rejected)
         rows.append(f"<tr class='{'ok' if s.feasible else 'bad'}'><th>{html.escape(s.title)}</th>"
-                    f"<td>{state}</td><td>{s.designs}</td><td>{s.merged}</td>{best}<td>{binds}</td></tr>")
+                    f"<td>{state}{refused}</td><td>{count}</td><td>{s.merged}</td>{best}<td>{binds}</td></tr>")
     notes = "".join(f"<li>{html.escape(n)}</li>" for n in v.notes)
+    # Beside a feasible front the plot holds only designs that meet the spec; with none, it holds these.
+    drawn = " (in closest.csv, not drawn on the plot)" if feasible else " (drawn hollow on the plot)"
     return (f"<p class='sentence' id='sentence'>{html.escape(v.sentence)}</p>"
             + (f"<ul class='notes'>{notes}</ul>" if notes else "")
-            + "<table id='verdict-table'><thead><tr><th>Topology</th><th>Status</th><th>Designs shown</th>"
+            + "<table id='verdict-table'><thead><tr><th>Topology</th><th>Status</th><th>Designs</th>"
               f"<th>On merged front</th>{heads}<th>What binds, by how much</th></tr></thead><tbody>"
             + "".join(rows) + "</tbody></table><p class='fine'>★ best of all topologies on that objective. "
+              f"† of the topology's closest designs, which do not meet the spec{drawn}. "
               "“Binds”: for a topology that meets the spec, the spec line most of its front presses against; "
-              "for one that does not, what its closest design misses and by how much.</p>")
+              "for one that does not, what its closest design misses and by how much. Designs the stability "
+              "rules refused are counted over every design the search evaluated.</p>")
+
+
+def _markers_text(feasible: bool) -> str:
+    ring = f"the ring marks each topology's {html.escape(KNEE_NAME)}."
+    if feasible:
+        return ("Each marker is a sized design meeting the whole spec: filled when no design of any topology beats "
+                "it (the merged Pareto front), hollow when only its own topology's front holds it; " + ring)
+    return ("No design meets the spec: each hollow marker is one of a topology's closest designs, the least "
+            "violating the search found; " + ring)
 
 
 def _designs_table(df: pd.DataFrame, titles: dict[str, str]) -> str:
@@ -120,20 +138,22 @@ def _selection_data(df: pd.DataFrame, titles: dict[str, str], with_card: set[str
     return json.dumps(data, ensure_ascii=False).replace("<", "\\u003c")
 
 
-def render(df: pd.DataFrame, study: Study, tech_name: str, summary, builds: dict | None = None,
-           check: pd.DataFrame | None = None) -> str:
+def render(df: pd.DataFrame, study: Study, tech_name: str, summary: RunSummary, builds: dict | None = None,
+           check: pd.DataFrame | None = None, closest: pd.DataFrame | None = None) -> str:
     """The page. `builds`: topology -> the Build of its rows of `df` (same order), for the design cards;
-    `check`: ampfront check's long-form table (checked.read_check), when it has run."""
+    `check`: ampfront check's long-form table (checked.read_check), when it has run; `closest`: beside a
+    feasible front, the closest designs of the topologies that met nothing (for the verdict only)."""
     from ampfront import topologies
 
     builds = builds or {}
     known = topologies.available()
     titles = {n: getattr(known.get(n), "title", n) for n in (*study.topologies, *df["topology"].astype(str).unique())}
-    v = verdict(df, study.objectives, study.constraints, study.topologies, titles, summary.infeasible)
+    v = verdict(df, study.objectives, study.constraints, study.topologies, titles, summary.infeasible, closest,
+                summary.rejected)
     picks = {n: cards.picks(df, n, study.objectives, v.axes) for n in study.topologies}
     knees = {n: p[0].design for n, p in picks.items() if p}
     fig = plots.front_figure(df, study.objectives, study.constraints, titles, study.topologies, knees,
-                             first=v.axes, shown=SHOWN)
+                             first=v.axes or sentence_axes(study.objectives), shown=SHOWN)
     plot = figure_html(fig, "tradeoff")
     card_html = []
     for name in study.topologies:
@@ -165,15 +185,13 @@ def render(df: pd.DataFrame, study: Study, tech_name: str, summary, builds: dict
 {infeasible}
 <section id="verdict"><h2>Verdict</h2>{_verdict_html(v, study.objectives, summary.feasible)}</section>
 <section id="trade"><h2>Trade-off</h2>
-<p>Each marker is a sized design{' meeting the whole spec' if summary.feasible else ' (closest to the spec)'}:
-filled when no design of any topology beats it (the merged Pareto front), hollow when only its own topology's
-front holds it; the ring marks each topology's {html.escape(KNEE_NAME)}. The menu picks the two objectives
+<p>{_markers_text(summary.feasible)} The menu picks the two objectives
 shown. Click a design for its figures.</p>
 {plot}
 <aside id="selected" class="selected" hidden><h4 id="sel-title"></h4><div id="sel-body"></div></aside>
 </section>
 <section id="cards"><h2>Design cards</h2>
-<p>Each topology's knee and its best designs on the verdict's objectives. Netlists are in
+<p>Each topology's knee and its best design on every objective (one card per design). Netlists are in
 <code>netlists/&lt;design&gt;.sp</code>, every figure in <code>front.csv</code>.</p>
 {''.join(card_html)}</section>
 {corner_spread_html(df, titles)}
@@ -195,7 +213,8 @@ h3.topo { margin-top: 2rem; border-bottom: 2px solid #ccc; }
 .cols { display: flex; gap: 2rem; flex-wrap: wrap; }
 table { border-collapse: collapse; font-size: .85rem; }
 th, td { padding: .2rem .6rem; border-bottom: 1px solid #e4e4e4; text-align: left; vertical-align: top; }
-#verdict-table tr.bad th { color: #8a1b1b; } td.lead { font-weight: 700; } .fine { font-size: .8rem; color: #555; }
+#verdict-table tr.bad th { color: #8a1b1b; } td.lead { font-weight: 700; }
+td.closest { color: #8a1b1b; font-style: italic; } .rejected { font-size: .8rem; color: #555; } .fine { font-size: .8rem; color: #555; }
 .designs { max-height: 420px; overflow: auto; } .scroll { overflow-x: auto; }
 .card { border: 1px solid #ddd; border-radius: 6px; padding: .6rem 1rem; margin: 1rem 0; }
 .card h3 { margin: .2rem 0 .6rem; font-size: 1.05rem; } .why { color: #555; font-weight: 400; font-size: .9rem; }

@@ -11,6 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from ampfront.optimize.search.outcome import Infeasible, Rejections
 from ampfront.topologies.catalog import BOUNDS, INPUT_CM, METRICS, OBJECTIVES, RULES, metric
 
 # A constraint "binds" a design whose margin is within this fraction of the constraint's scale.
@@ -32,6 +33,8 @@ class Standing:
     leads: frozenset[str]         # objectives on which this topology has the best figure of all
     binding: str                  # what limits it, in engineering units
     misses: tuple[str, ...] = ()  # for an infeasible topology: every miss, described
+    closest: bool = False         # `best` and `designs` are of its closest designs, which miss the spec
+    rejected: tuple[str, ...] = ()  # evaluated designs the stability rules refused, described
 
 
 @dataclass(frozen=True)
@@ -103,11 +106,11 @@ def miss_text(constraint: str, metric_name: str, sense: str, value: float, bound
     return f"{constraint_label(constraint)}: {fmt(value)}, {fmt(gap)} {word} {fmt(bound)}"
 
 
-def _misses(name: str, rows: pd.DataFrame, record, constraints) -> list[tuple[float, str]]:
+def _misses(rows: pd.DataFrame, record: Infeasible | None, constraints) -> list[tuple[float, str]]:
     """(normalized shortfall, description) of every constraint the closest design misses, worst first."""
     scales = _scales(constraints)
     found = []
-    for m in getattr(record, "misses", ()) or ():
+    for m in record.misses if record is not None else ():
         scale = scales.get(m.constraint, (None, None, None, abs(m.bound) or 1.0))[3] or 1.0
         short = abs(m.value - m.bound) / scale if np.isfinite(m.value) else np.inf
         found.append((short, miss_text(m.constraint, m.metric, m.sense, m.value, m.bound)))
@@ -126,8 +129,6 @@ def _misses(name: str, rows: pd.DataFrame, record, constraints) -> list[tuple[fl
                 value = float(row[c.metric]) if c.metric in row else np.nan
                 found.append((-float(row[column]) / (c.scale or 1.0),
                               miss_text(c.name, c.metric, c.sense, value, c.bound)))
-    if not found and record is not None and hasattr(record, "describe"):
-        found.append((np.inf, record.describe()))
     return sorted(found, key=lambda t: -t[0])
 
 
@@ -230,13 +231,17 @@ def _say(table: pd.DataFrame, objectives, titles: dict[str, str]) -> tuple[str, 
 
 
 def verdict(table: pd.DataFrame, objectives, constraints, topologies, titles: dict[str, str],
-            infeasible: dict | None = None) -> Verdict:
+            infeasible: dict[str, Infeasible] | None = None, closest: pd.DataFrame | None = None,
+            rejected: dict[str, Rejections] | None = None) -> Verdict:
     """The study's verdict from its front table; `infeasible` holds the typed records of topologies with no
-    feasible design (their `.misses`), or anything with `describe()`."""
-    infeasible = infeasible or {}
+    feasible design; `closest` their closest designs when other topologies do meet the spec (closest.csv);
+    `rejected` what the stability rules refused in each topology's search."""
+    infeasible, rejected = infeasible or {}, rejected or {}
     meets = flag(table["meets_spec"]) if "meets_spec" in table else np.ones(len(table), bool)
     merged = flag(table["on_merged_front"]) if "on_merged_front" in table else np.zeros(len(table), bool)
     names = table["topology"].astype(str).to_numpy() if len(table) else np.array([], str)
+    nearest = closest if closest is not None else table.iloc[0:0]
+    nearest_names = nearest["topology"].astype(str).to_numpy() if len(nearest) else np.array([], str)
     feasible_rows = table[meets]
     overall = _best(feasible_rows if len(feasible_rows) else table, objectives)
     standings = []
@@ -245,17 +250,20 @@ def verdict(table: pd.DataFrame, objectives, constraints, topologies, titles: di
         rows = table[mine]
         ok = bool((meets & mine).any()) and name not in infeasible
         pool = table[mine & meets] if ok else rows
+        if not ok and not len(pool):
+            pool = rows = nearest[nearest_names == name]
         best = _best(pool, objectives) if len(pool) else {}
         shown = {o: METRICS[OBJECTIVES[o].metric].format(value) for o, value in best.items()}
         leads = frozenset(o for o, value in best.items() if ok and o in overall and value == overall[o])
         if ok:
             binding, misses = _binding_feasible(pool, constraints), ()
         else:
-            found = _misses(name, rows, infeasible.get(name), constraints)
+            found = _misses(rows, infeasible.get(name), constraints)
             misses = tuple(text for _, text in found)
             binding = misses[0] if misses else "no design could be evaluated"
+        said = tuple(rejected[name].describe()) if name in rejected else ()
         standings.append(Standing(name, titles.get(name, name), ok, int(len(pool)), int((merged & mine).sum()),
-                                  shown, leads, binding, misses))
+                                  shown, leads, binding, misses, closest=not ok and bool(len(pool)), rejected=said))
     notes = []
     if len(feasible_rows):
         sentence, axes = _say(feasible_rows, objectives, titles)
@@ -268,16 +276,16 @@ def verdict(table: pd.DataFrame, objectives, constraints, topologies, titles: di
                          "; none of its designs is on the merged front")
                 notes.append(f"{s.title} is never the best on that trade{where}.")
             elif not s.feasible:
-                notes.append(f"{s.title} meets no design: {s.binding}.")
+                notes.append(f"No design of {s.title} meets the spec: {s.binding}.")
     else:
         axes = None
-        ranked = sorted(standings, key=lambda s: _shortfall(s.name, table[names == s.name], infeasible.get(s.name),
+        ranked = sorted(standings, key=lambda s: _shortfall(table[names == s.name], infeasible.get(s.name),
                                                              constraints))
         parts = [f"{s.title} ({s.binding})" for s in ranked]
         sentence = "No topology meets the whole spec; nearest first: " + "; ".join(parts) + "."
     return Verdict(standings, sentence, notes, axes)
 
 
-def _shortfall(name, rows, record, constraints) -> float:
-    found = _misses(name, rows, record, constraints)
+def _shortfall(rows, record, constraints) -> float:
+    found = _misses(rows, record, constraints)
     return float(sum(min(s, 1e6) for s, _ in found)) if found else np.inf

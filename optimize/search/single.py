@@ -8,10 +8,42 @@ from ampfront import topologies
 from ampfront.optimize.outputs.tables import front_table
 from ampfront.optimize.search.bounds import piles
 from ampfront.optimize.search.engine import Progress, run_search
-from ampfront.optimize.search.outcome import Infeasible, Miss, Outcome, TopologyFront
-from ampfront.optimize.search.problem import DesignProblem
+from ampfront.optimize.search.outcome import STABILITY_RULES, Infeasible, Miss, Outcome, Rejections, TopologyFront
+from ampfront.optimize.search.problem import _BAD, DesignProblem
 from ampfront.optimize.spec.corners import evaluate_study
 from ampfront.optimize.spec.study import Study
+
+
+class CountingProblem(DesignProblem):
+    """The design problem, counting as it evaluates (one vectorized pass over each population) the designs
+    each stability rule turns away, and how many of those meet every other constraint."""
+
+    def __init__(self, topology, tech, study: Study):
+        super().__init__(topology, tech, study)
+        names = [c.name for c in study.constraints]
+        self.rules = [r for r in STABILITY_RULES if r in names]
+        self._columns = np.array([names.index(r) for r in self.rules], int)
+        self._others = np.array([i for i, n in enumerate(names) if n not in STABILITY_RULES], int)
+        self.violated = np.zeros(len(self.rules), np.int64)
+        self.only = np.zeros(len(self.rules), np.int64)
+        self.counted = 0
+
+    def _evaluate(self, X, out, *args, **kwargs):
+        super()._evaluate(X, out, *args, **kwargs)
+        g = out["G"]
+        self.counted += len(g)
+        if not len(self._columns):
+            return
+        # A figure that could not be evaluated reads _BAD: that design failed to bias, it was not judged unstable.
+        judged = g[:, self._columns]
+        bad = (judged > 0) & (judged < _BAD)
+        rest = (g[:, self._others] <= 0).all(axis=1) if len(self._others) else np.ones(len(g), bool)
+        self.violated += bad.sum(axis=0)
+        self.only += (bad & rest[:, None]).sum(axis=0)
+
+    def rejections(self) -> Rejections:
+        return Rejections(self.counted, dict(zip(self.rules, self.violated.tolist())),
+                          dict(zip(self.rules, self.only.tolist())))
 
 
 def misses(problem: DesignProblem, metrics: dict[str, np.ndarray], row: int) -> tuple[Miss, ...]:
@@ -25,7 +57,7 @@ def misses(problem: DesignProblem, metrics: dict[str, np.ndarray], row: int) -> 
 
 def search_topology(study: Study, tech, name: str, progress: Progress | None) -> Outcome:
     topology = topologies.available()[name]
-    problem = DesignProblem(topology, tech, study)
+    problem = CountingProblem(topology, tech, study)
     result = run_search(problem, study.population, study.generations, study.seed, progress)
     x = problem.decode(result.X)
     metrics, build, corners = evaluate_study(topology, x, tech, study, problem.corners, step=True)
@@ -33,10 +65,10 @@ def search_topology(study: Study, tech, name: str, progress: Progress | None) ->
     table = front_table(name, names, metrics, build, x, study.constraints, corners)
     if result.feasible:
         return TopologyFront(name, table, build, result.evaluations, result.history, piles(name, problem, result.X),
-                             corners)
+                             corners, problem.rejections())
     # The closest design: least total normalized violation (the search's own measure).
     violations = np.column_stack([np.nan_to_num(np.maximum(c.violation(metrics), 0), nan=1e9)
                                   for c in study.constraints])
     best = int(np.argmin(violations.sum(axis=1)))
     return Infeasible(name, misses(problem, metrics, best), table, build, result.evaluations, result.history,
-                      corners)
+                      corners, problem.rejections())
