@@ -155,8 +155,8 @@ def test_small_step_overshoot_and_settling_match_ngspice(fronts, tmp_path):
             overshoot = 100 * max((v.max() - vf) / (vf - v0), 0.0)
             outside = np.abs(v - vf) > SETTLE_BAND * abs(vf - v0)
             settled = t[np.flatnonzero(outside)[-1] + 1]
-            # 3 points on level 1; 4 on BSIM4, where one SKY130 two-stage front design read 13.3 % against
-            # ngspice's 10.1 % (DEVELOPERS.md, known disagreements).
+            # 3 points on level 1; 4 on BSIM4, where one SKY130 two-stage front design reads 10.1 % against
+            # ngspice's 13.3 % (DEVELOPERS.md, known limits; measured again for issue 15).
             bound = 3.0 if tech_name == "generic180" else 4.0
             assert metrics["overshoot_pct"][k] == pytest.approx(overshoot, abs=bound), (name, k)
             print(f"{tech_name} {name} {k}: overshoot {metrics['overshoot_pct'][k]:.2f} % vs {overshoot:.2f} %, "
