@@ -45,9 +45,11 @@ def test_loaded_front_designs_match_ngspice(driver, name, tmp_path):
     table = check_folder(tmp_path, 3)
     assert len(table) == 3
     # Known disagreement (issue 11, DEVELOPERS.md known limits): the small-step overshoot of some folded
-    # class-AB designs reads several points apart from ngspice's transient (0 % against 6 % seen); every
-    # other judged figure must agree, and the overshoot's own error is recorded in the table.
-    judged = table["within_bounds"] | table["status"].eq("Small-step overshoot outside the agreement bound")
+    # class-AB designs reads several points apart from ngspice's transient (0 % against 6 % seen). Only that
+    # topology is excused, and only that figure; its error stays recorded in the table.
+    excused = (table["status"].eq("Small-step overshoot outside the agreement bound")
+               if name == "folded_cascode_ab" else False)
+    judged = table["within_bounds"] | excused
     assert judged.all(), table.to_string()
 
 

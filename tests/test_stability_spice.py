@@ -7,7 +7,8 @@ closed by an ideal VCVS, v(inn) - v_cm = beta (v(out) - v_cm), so nothing but th
 output (tests/closed_loop_decks.py). Poles from ngspice's `.pz` of v(out)/v(inp); overshoot and settling
 from a `tran` of a 1 mV step at inp.
 Designs where ngspice's pole search fails (it stops at its iteration limit and prints a partial list, or
-prints one unconverged value again and again) are left out, at most half of them. Only the unity-gain loop is compared by `.pz`: with the loop closed at beta = 0.2 through the VCVS, ngspice's
+prints one unconverged value again and again) are judged by their transient instead: the step the model's
+poles and residues predict against ngspice's. Only the unity-gain loop is compared by `.pz`: with the loop closed at beta = 0.2 through the VCVS, ngspice's
 root search returned repeated poles on a +-1e8 rad/s grid and right-half-plane artifacts (seen on
 generic180 and sky130 folded cascodes), so it is no reference there. Settling times are printed, not
 bounded. Bounds: every dominant model pole (one carrying more than 1e-3 of the step) below five times the loop
@@ -81,31 +82,61 @@ def _dominant_poles(build, cond, beta, k):
     return poles, finite & (weight > 1e-3)
 
 
+def _model_step(build, cond, beta, k, times):
+    """The model's closed-loop response to a unit step at inp, from its poles and residues, at `times`."""
+    diff, cm = small_signal(build, cond), small_signal(build, cond, "common_mode")
+    g, c, g_p, c_p, out = closed_loop_matrices(diff, cm, beta)
+    modal = _Modal(g[k:k + 1], c[k:k + 1], g_p[k:k + 1], c_p[k:k + 1], out)
+    finite = _finite_poles(modal.lam)[0]
+    lam = np.where(finite, modal.lam[0], 1.0)
+    p, amp = np.where(finite, -1.0 / lam, 0.0), np.where(finite, modal.r1[0] / lam - modal.r0[0], 0.0)
+    final = modal.r0[0].sum().real
+    return final + (amp[None, :] * np.exp(p[None, :] * times[:, None])).real.sum(axis=1), final
+
+
+# Transient stand-in where .pz gives up: the model's step (poles and residues) against ngspice's, the
+# largest difference as a fraction of the step, after the first tenth of the crossover period (the 1 mV
+# step's own rise). Measured on the SKY130 fronts (where .pz gave up on all three two-stage designs):
+# 1.0, 1.6 and 3.3 %; generic180's .pz finished everywhere, its bound is the square law's tighter share.
+STEP_SHAPE = {"generic180": 0.03, "sky130": 0.06}
+
+
 @pytest.mark.spice
 @pytest.mark.parametrize("beta", [1.0])
 def test_closed_loop_poles_of_front_designs_match_ngspice_pz(fronts, beta, tmp_path):
+    """Every design tried is judged: by ngspice's .pz where its root search finishes, otherwise by the
+    step its poles predict against ngspice's transient (SKY130's BSIM4 loops often stop .pz)."""
     tech_name, tech, cond, found = fronts
-    compared, unfinished = 0, 0
+    compared, by_step, tried = 0, 0, 0
     for name, (build, table) in found.items():
         metrics = stability_metrics(build, cond, beta)
         for k in _spread(3, len(table)):
+            tried += 1
+            assert metrics["cl_rhp_poles"][k] == 0
             poles, dominant = _dominant_poles(build, cond, beta, k)
             near = dominant & (np.abs(poles) < 5 * 2 * np.pi * metrics["loop_crossover_hz"][k])
             theirs, finished = spice_poles(build, k, tech, cond, beta, tmp_path / f"{name}-{k}")
-            if not finished:
-                # ngspice's root search gave up part way: its list is incomplete, nothing to compare.
-                unfinished += 1
+            if finished:
+                assert near.any(), (name, k)   # a loop has a dominant pole below five crossovers
+                for p in poles[near]:
+                    closest = theirs[np.argmin(np.abs(theirs - p))]
+                    assert abs(closest - p) / abs(p) < POLE_TOLERANCE[tech_name], (name, k, p, closest)
+                    compared += 1
                 continue
-            for p in poles[near]:
-                closest = theirs[np.argmin(np.abs(theirs - p))]
-                assert abs(closest - p) / abs(p) < POLE_TOLERANCE[tech_name], (name, k, p, closest)
-                compared += 1
-            assert metrics["cl_rhp_poles"][k] == 0
-    if tech_name == "sky130" and compared == 0:
-        # ngspice's pole-zero search gave up on every BSIM4 closed loop of this front (seen on SKY130 since
-        # the fronts reach long, weak-inversion devices); the transient tests below carry the comparison.
-        pytest.skip(f"ngspice .pz finished on none of the {unfinished} SKY130 closed loops")
-    assert compared >= 3 and unfinished <= 6
+            f_c = metrics["loop_crossover_hz"][k]
+            t, v = spice_step(build, k, tech, cond, beta, tmp_path / f"{name}-{k}-step", 1e-3,
+                              3 * metrics["settling_s"][k], 1e-3 / f_c)
+            v0 = np.interp(0.0, t, v)
+            ours, final = _model_step(build, cond, beta, k, t)
+            late = t > 0.1 / f_c
+            worst = np.max(np.abs((v - v0)[late] / 1e-3 - ours[late])) / abs(final)
+            print(f"{tech_name} {name} {k}: .pz gave up; step shape off by {100 * worst:.2f} % of the step")
+            assert worst < STEP_SHAPE[tech_name], (name, k, worst)
+            by_step += 1
+    # The square law's .pz finishes: its poles are the reference for at least three poles.
+    if tech_name == "generic180":
+        assert compared >= 3
+    assert tried >= 3
 
 
 @pytest.mark.spice
@@ -124,8 +155,8 @@ def test_small_step_overshoot_and_settling_match_ngspice(fronts, tmp_path):
             overshoot = 100 * max((v.max() - vf) / (vf - v0), 0.0)
             outside = np.abs(v - vf) > SETTLE_BAND * abs(vf - v0)
             settled = t[np.flatnonzero(outside)[-1] + 1]
-            # 3 points on level 1; 4 on BSIM4, where one SKY130 two-stage front design read 13.3 % against
-            # ngspice's 10.1 % (DEVELOPERS.md, known disagreements).
+            # 3 points on level 1; 4 on BSIM4, where one SKY130 two-stage front design reads 10.1 % against
+            # ngspice's 13.3 % (DEVELOPERS.md, known limits; measured again for issue 15).
             bound = 3.0 if tech_name == "generic180" else 4.0
             assert metrics["overshoot_pct"][k] == pytest.approx(overshoot, abs=bound), (name, k)
             print(f"{tech_name} {name} {k}: overshoot {metrics['overshoot_pct'][k]:.2f} % vs {overshoot:.2f} %, "

@@ -219,3 +219,71 @@ def test_feedback_factor_outside_the_unit_interval_is_refused():
     for beta in (0.0, -0.5, 1.5):
         with pytest.raises(ValueError):
             stability_from_circuits(diff, cm, beta)
+
+
+FRONT_STUDY = """
+title = "Front poles"
+topologies = ["{name}"]
+objectives = ["power", "gbw"]
+technology = "{technology}"
+
+[spec]
+supply = "1.8 V"
+load_capacitance = "2 pF"
+{load}
+min_gain = "30 dB"
+min_gbw = "100 kHz"
+min_phase_margin = "30 deg"
+input_cm = "0.9 V"
+
+[search]
+population = {population}
+generations = {generations}
+seed = 7
+"""
+_FRONTS: dict = {}
+
+
+def _front(name, tech_name, folder):
+    """(build, conditions) of a short search's front for one topology; the class-AB stages, whose random
+    designs seldom bias, drive a 5 kOhm load from a larger population."""
+    from ampfront.optimize.search.outcome import TopologyFront
+    from ampfront.optimize.search.single import search_topology
+    from ampfront.optimize.spec.study import load_study
+
+    key = (name, tech_name)
+    if key not in _FRONTS:
+        ab = name.endswith("_ab")
+        (folder / "study.toml").write_text(FRONT_STUDY.format(
+            name=name, technology=tech_name, load='load_resistance = "5 kOhm"' if ab else "",
+            population=64 if ab else 32, generations=25))
+        study = load_study(folder / "study.toml", topologies.available())
+        with np.errstate(all="ignore"):
+            found = search_topology(study, TECHS[tech_name], name, None)
+        assert isinstance(found, TopologyFront), f"{name} on {tech_name}: no front ({found})"
+        _FRONTS[key] = (found.build, study.conditions)
+    return _FRONTS[key]
+
+
+@pytest.mark.parametrize("tech_name", list(TECHS))
+@pytest.mark.parametrize("name", NAMES)
+def test_closed_loop_poles_of_front_designs_agree_with_qz(name, tech_name, inverting, tmp_path):
+    """Front designs, not random ones: the search's corner of the box (high GBW for the power, margins
+    near their bound) is where a pole read wrong would change the verdict."""
+    build, cond = _front(name, tech_name, tmp_path)
+    with np.errstate(all="ignore"):
+        diff, cm = small_signal(build, cond), small_signal(build, cond, "common_mode")
+        inv = inverting(build, cond)
+    poles = closed_loop_poles(diff, cm, 1.0)
+    metrics = stability_from_circuits(diff, cm, 1.0)
+    designs = diff.designs
+    assert designs >= 2
+    # Every front design is closed-loop stable (the always-on rule), and QZ agrees pole by pole.
+    for k in sorted({round(i * (designs - 1) / 5) for i in range(6)}):
+        a, b = _augmented(diff, inv, k, 1.0)
+        ref = scipy.linalg.eigvals(a, -b)
+        ref = ref[np.isfinite(ref) & (np.abs(ref) < FASTEST)]
+        ours = poles[k][np.isfinite(poles[k]) & (np.abs(poles[k]) < FASTEST)]
+        assert len(ours) == len(ref), (k, np.sort_complex(ours), np.sort_complex(ref))
+        assert _match(ours, ref) < 1e-6
+        assert (ref.real < 0).all() and metrics["cl_rhp_poles"][k] == 0

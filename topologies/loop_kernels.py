@@ -150,13 +150,15 @@ def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default):
             c, s = math.cos(ref), math.sin(ref)
             # angle(h_u exp(-j ref)): the crossing's phase measured from the grid point before it.
             phase_u = ref + math.atan2(im * c - re * s, re * c + im * s)
-            pm[d] = 180.0 + phase_u * (180.0 / np.pi)
+            raw = 180.0 + phase_u * (180.0 / np.pi)
+            # Referred to the nearest turn, as smallsignal.refer_margin does.
+            pm[d] = raw - 360.0 * math.floor((raw + 180.0) / 360.0)
             gbw[d] = f_u
         else:
             pm[d] = -np.inf
             gbw[d] = 0.0
-        # Several unity crossings, or a leading phase at the crossing: no margin to trust.
-        if count > 1 or pm[d] > 180.0:
+        # Several unity crossings: no single margin to trust.
+        if count > 1:
             pm[d] = np.nan
         if turn > 0:
             p_lo = math.atan2(ims[turn - 1], res[turn - 1]) + TWO_PI * turns[turn - 1]

@@ -258,6 +258,17 @@ def _blank(result: LoopMetrics, rows: np.ndarray) -> LoopMetrics:
     return result
 
 
+def refer_margin(raw):
+    """Phase margin (deg) referred to the nearest turn, in [-180, 180): only the phase at the crossover
+    modulo a turn is a property of the loop. A continuous phase carried through a sharp doublet can come
+    out a full turn off either way, depending on where the grid falls: read raw, a turn too far fails a
+    sound design (margin near -290 deg) and a turn too few lifts a failing one above 180 deg. The testbench
+    (optimize/outputs/netlist.py) and the closed-loop reading (stability._phase_reading) refer it the same
+    way. The compiled twin (loop_kernels.crossings) writes the same formula."""
+    raw = np.asarray(raw, float)
+    return raw - 360.0 * np.floor((raw + 180.0) / 360.0)
+
+
 def _grid(f_lo: float, f_hi: float, per_decade: int) -> np.ndarray:
     return np.logspace(np.log10(f_lo), np.log10(f_hi), int(round(np.log10(f_hi / f_lo) * per_decade)) + 1)
 
@@ -308,12 +319,12 @@ def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine
     h_u = response(f_u[:, None])[:, 0] * sign
     ref = phase[rows, k - 1]
     phase_u = ref + np.angle(h_u * np.exp(-1j * ref))
-    pm = np.where(has_ugf, 180.0 + np.degrees(phase_u), -np.inf)
+    pm = np.where(has_ugf, refer_margin(180.0 + np.degrees(phase_u)), -np.inf)
     gbw = np.where(has_ugf, f_u, 0.0)
-    # A loop gain that crosses unity more than once, or whose phase at the crossing leads (margin above
-    # 180 deg), has no single phase margin a designer can trust: it reads NaN and fails the constraint.
+    # A loop gain that crosses unity more than once has no single phase margin a designer can trust: it
+    # reads NaN and fails the constraint.
     crossings = (np.diff(below.astype(np.int8), axis=1) != 0).sum(axis=1)
-    pm = np.where((crossings > 1) | (pm > 180.0), np.nan, pm)
+    pm = np.where(crossings > 1, np.nan, pm)
 
     beyond = phase <= -np.pi
     has_180 = beyond.any(axis=1) & ~beyond[:, 0]
