@@ -12,14 +12,15 @@ from .clirun import TINY_STUDY, ampfront
 
 
 class _Tables(HTMLParser):
-    """Text of every cell of every table with class 'check'."""
+    """Text of every cell of every table of one class (the cards' 'check' tables by default)."""
 
-    def __init__(self):
+    def __init__(self, kind: str = "check"):
         super().__init__()
+        self.kind = kind
         self.rows, self._in, self._cell = [], 0, None
 
     def handle_starttag(self, tag, attrs):
-        if tag == "table" and ("class", "check") in attrs:
+        if tag == "table" and ("class", self.kind) in attrs:
             self._in += 1
         elif self._in and tag == "tr":
             self.rows.append([])
@@ -73,3 +74,28 @@ def test_a_check_csv_of_another_shape_leaves_the_report_whole(tmp_path):
     assert proc.returncode == 0, proc.stderr
     html = (out / "report.html").read_text(encoding="utf-8")
     assert "Not simulated yet" in html and "id=\"verdict\"" in html
+
+
+def test_agreement_per_topology_and_figure_is_summarized(tmp_path):
+    """The report's model-against-ngspice section: per topology and figure, the designs simulated, the
+    median and worst error, the bound and how many disagree, computed from check.csv."""
+    from ampfront import topologies
+    from ampfront.topologies.catalog import metric
+
+    out = _run(tmp_path)
+    designs = pd.read_csv(out / "front.csv")["design"].iloc[:3].tolist()
+    errors = [0.1, 0.2, 0.6]
+    pd.DataFrame([{"design": d, "corner": "nominal", "metric": "gain_db", "model": 40.0, "simulated": 40.0 + e,
+                   "error": e, "bound": 0.5, "status": "agrees" if e <= 0.5 else "disagrees",
+                   "topology": "simple_ota"} for d, e in zip(designs, errors)]
+                 + [{"design": d, "corner": "nominal", "metric": "out_low_v", "model": 0.2, "simulated": 0.2 + e,
+                     "error": -e, "bound": 0.05, "status": "agrees", "topology": "simple_ota"}
+                    for d, e in zip(designs, (0.01, 0.03, 0.05))]).to_csv(out / "check.csv", index=False)
+    assert ampfront("report", out).returncode == 0
+    parser = _Tables("agreement")
+    parser.feed((out / "report.html").read_text(encoding="utf-8"))
+    rows = [r for r in parser.rows if r]
+    title = topologies.available()["simple_ota"].title
+    gain = metric("gain_db")
+    assert [title, "DC gain", "3", gain.format(0.2), gain.format(0.6), gain.format(0.5), "1"] in rows, rows
+    assert [title, "Lowest linear output", "3", "-30 mV", "-10 mV", "50 mV beyond", "0"] in rows, rows

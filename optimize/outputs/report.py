@@ -15,6 +15,7 @@ import pandas as pd
 import plotly.graph_objects as go
 from plotly.offline import get_plotlyjs
 
+from ampfront.optimize.outputs.checked import agreement_html
 from ampfront.optimize.outputs import cards, plots
 from ampfront.optimize.outputs.knee import KNEE_NAME
 from ampfront.optimize.outputs.summary import RunSummary
@@ -195,6 +196,7 @@ shown. Click a design for its figures.</p>
 <code>netlists/&lt;design&gt;.sp</code>, every figure in <code>front.csv</code>.</p>
 {''.join(card_html)}</section>
 {corner_spread_html(df, titles)}
+{agreement_html(check, titles)}
 <div class="cols"><section><h2>Spec</h2><table id="spec">{spec}</table></section>
 <section><h2>Search</h2><ul>{facts}</ul></section></div>
 <h2>All designs</h2>{_designs_table(df, titles)}
