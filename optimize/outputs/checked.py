@@ -11,6 +11,8 @@ from pathlib import Path
 
 import pandas as pd
 
+from ampfront.topologies.catalog import M
+
 COLUMNS = ("design", "corner", "metric", "model", "simulated", "error", "bound", "status", "topology")
 NUMBERS = ("model", "simulated", "error", "bound")
 
@@ -41,7 +43,7 @@ def normalize(table: pd.DataFrame) -> pd.DataFrame | None:
 
 # Swing rows carry the model's claim beyond the sweep (signed volts), every other row |error| in the mode of
 # its bound (relative for GBW, current, power, noise, settling; absolute otherwise).
-_SIGNED = frozenset({"out_low_v", "out_high_v", "swing_v"})
+_SIGNED = frozenset({M.out_low_v, M.out_high_v, M.swing_v})
 
 
 def agreement_html(check: pd.DataFrame | None, titles: dict[str, str]) -> str:
