@@ -12,6 +12,7 @@ import multiprocessing
 import os
 import queue as queue_module
 import signal
+import sys
 import threading
 import time
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -28,11 +29,29 @@ class WorkerLost(Exception):
     """A search process died without a result."""
 
 
-def _init_worker(relay) -> None:
+def _init_worker(relay, parent: int) -> None:
+    """`parent`: the run's process id, passed in rather than read here: a worker still starting up (imports
+    take seconds on a loaded machine) when its run is killed would otherwise take init's new parent for it."""
     global _relay
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     _relay = relay
-    threading.Thread(target=_exit_with_parent, args=(os.getppid(),), daemon=True).start()
+    _die_with_parent()
+    if os.getppid() != parent:   # gone before the kernel could be told
+        os._exit(1)
+    threading.Thread(target=_exit_with_parent, args=(parent,), daemon=True).start()
+
+
+def _die_with_parent() -> None:
+    """On Linux the kernel itself kills the worker when its parent dies (PR_SET_PDEATHSIG): a worker inside a
+    long compiled call holds the GIL, so the watchdog thread alone can take many seconds to notice."""
+    if not sys.platform.startswith("linux"):
+        return
+    try:
+        import ctypes
+
+        ctypes.CDLL(None, use_errno=True).prctl(1, signal.SIGKILL)   # 1: PR_SET_PDEATHSIG
+    except (OSError, AttributeError):
+        pass
 
 
 def _exit_with_parent(parent: int) -> None:
@@ -57,7 +76,7 @@ def search_all(study, progress_factory: Callable | None, workers: int | None = N
     progress = {n: progress_factory(n, study.generations) for n in study.topologies} if progress_factory else {}
     context = multiprocessing.get_context("spawn")
     relay = context.Queue()
-    pool = ProcessPoolExecutor(workers, mp_context=context, initializer=_init_worker, initargs=(relay,))
+    pool = ProcessPoolExecutor(workers, mp_context=context, initializer=_init_worker, initargs=(relay, os.getpid()))
     results: dict[str, Outcome] = {}
     try:
         pending = {pool.submit(_worker, study, name): name for name in study.topologies}
