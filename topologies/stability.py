@@ -54,8 +54,8 @@ slope of its unit step response (from the poles and residues); beyond the slew r
 The largest step the loop follows linearly is V_lin = SR / s_max (SR tau for one pole). A larger step slews
 for (V_step - V_lin) / SR, then settles linearly from the remaining V_lin: the small-signal response must
 reach band * V_step, a band of band * V_step / V_lin in its own terms. t = t_slew + t_linear. The step is
-taken at inp (the non-inverting response); the inverting configuration has the same poles and is read the
-same way.
+taken where the configuration's signal enters: at inp (non-inverting), or through the network at inn with
+inp at the common mode (inverting: the same poles, other zeros, an inverted output).
 """
 
 from __future__ import annotations
@@ -483,6 +483,16 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
     g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta, r_source)
     g_n, c_n = inverting_column(differential, common_mode)
     tau = r_source * input_capacitance(g_n, c_n) if r_source > 0 else None
+    if inverting:
+        # The signal enters through the network at inn, the amplifier's inp held at the common mode:
+        # v(inn) = beta v(out) + (1 - beta) v(sig), so the drive is (1 - beta) times the inn column, or,
+        # behind the network's pole, the extra row's (1 - beta) (closed_loop_matrices). The poles are the
+        # same; the zeros (no feedforward through the input pair from inp) and the sign are not.
+        if r_source > 0:
+            g_p, c_p = np.zeros_like(g_p), np.zeros_like(c_p)
+            g_p[:, -1] = -(1.0 - beta)
+        else:
+            g_p, c_p = (1.0 - beta) * g_n, (1.0 - beta) * c_n
     with np.errstate(all="ignore"):
         closed = _Modal(g, c, g_p, c_p, out)
         finite = _finite_poles(closed.lam)
