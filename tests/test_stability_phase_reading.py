@@ -6,7 +6,8 @@ unwrapping at all), referred to the nearest turn exactly as the open-loop testbe
 (optimize/outputs/netlist.py: pm_raw - 360 floor((pm_raw + 180) / 360)). The synthetic loop is a rational
 function built here from its poles and zeros (partial fractions by hand), not by the solver; the response
 is chosen so that the solver's own 8-per-decade grid unwraps its phase a full turn wrong (checked below,
-so the test cannot pass by the case being easy).
+so the test cannot pass by the case being easy). The gain margin through the same doublet is checked
+against np.unwrap of the response on a dense grid, on both paths.
 """
 
 import numpy as np
@@ -89,3 +90,40 @@ def test_margins_of_any_response_lie_within_half_a_turn():
         with np.errstate(all="ignore"):
             fast, _ = _crossings_compiled(modal, *ARGS)
         np.testing.assert_allclose(fast.phase_margin[finite], ref.phase_margin[finite], rtol=1e-9)
+        # The gain margin's walk through fast steps is the same on both paths (inf where it never crosses).
+        gm_finite = np.isfinite(ref.gain_margin)
+        assert gm_finite.sum() > 200
+        np.testing.assert_array_equal(fast.gain_margin[~gm_finite], ref.gain_margin[~gm_finite])
+        np.testing.assert_allclose(fast.gain_margin[gm_finite], ref.gain_margin[gm_finite], rtol=1e-9, atol=1e-9)
+
+
+@pytest.mark.parametrize("path", ["reference", "compiled"])
+def test_gain_margin_through_a_sharp_doublet_reads_the_true_minus_180_crossing(path):
+    """The doublet above takes the phase through -180 deg while |A| is in the hundreds: the true gain
+    margin is far below 0 dB. Read from the grid's continuous phase (which goes the short way round, up
+    instead of down) the phase never reached -180 deg and the margin read infinite. Reference: np.unwrap of
+    the same rational response on a dense grid (a million points a decade over 100 kHz to 10 MHz, where
+    no step turns the phase by more than a fraction of a degree), |A| at its first -180 deg crossing."""
+    if path == "compiled" and not kernels.enabled():
+        pytest.skip("numba not importable")
+    modal = _modal(**DOUBLET)
+    f = np.logspace(5, 7, 2_000_001)
+    h = modal.response(f)[0]
+    dense = np.unwrap(np.angle(h))
+    dense -= 2 * np.pi * np.round(dense[0] / (2 * np.pi))
+    k = np.argmax(dense <= -np.pi)
+    assert k > 0 and abs(h[k]) > 100
+    truth = -20 * np.log10(abs(h[k]))
+    # The case is hard: on the solver's own grid the continuous phase stays above -180 deg up to the
+    # crossover.
+    grid = _grid(*ARGS[:3])
+    g = modal.response(grid)[0]
+    assert np.unwrap(np.angle(g))[np.abs(g) >= 1].min() > -np.pi
+    with np.errstate(all="ignore"):
+        if path == "compiled":
+            read, _ = _crossings_compiled(modal, *ARGS)
+        else:
+            read = _crossings(modal.dc.real, modal.response, *ARGS)
+    assert read.gain_margin[0] == pytest.approx(truth, abs=0.5)
+    # The phase margin is untouched by the walk: still the nearest-turn reading at the crossover.
+    assert 60 < read.phase_margin[0] < 80

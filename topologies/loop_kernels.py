@@ -98,7 +98,22 @@ def _winding(re0, im0, re1, im1):
 _winding = compiled(_winding)
 
 
-def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default):
+def _walk_turns(r0, r1, lam, d, sign, lo, hi, re0, im0, points):
+    """Turns the phase takes from grid point lo (response re0, im0) to hi, walked on `points` log-spaced
+    sub-steps (smallsignal._resolve_fast_turns): the way a fast step really went round."""
+    n = 0
+    for i in range(1, points + 1):
+        re, im = _modal(r0, r1, lam, d, math.exp(lo + (hi - lo) * i / points))
+        re, im = re * sign, im * sign
+        n += _winding(re0, im0, re, im)
+        re0, im0 = re, im
+    return n
+
+
+_walk_turns = compiled(_walk_turns)
+
+
+def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default, walk_points):
     """gbw (Hz), phase margin (deg), gain margin (dB) and the modal response at the probe frequency the
     modal check uses (gbw, or f_probe_default without a crossing), for every design.
 
@@ -119,7 +134,12 @@ def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default):
             res[k], ims[k] = re, im
             below = re * re + im * im < 1.0
             if k > 0:
-                n += _winding(res[k - 1], ims[k - 1], re, im)
+                if res[k - 1] * re + ims[k - 1] * im < 0.0:
+                    # More than a quarter turn in one step: walk it (smallsignal.FAST_TURN).
+                    n += _walk_turns(r0, r1, lam, d, sign, logf[k - 1], logf[k], res[k - 1], ims[k - 1],
+                                     walk_points)
+                else:
+                    n += _winding(res[k - 1], ims[k - 1], re, im)
                 if below != previous_below:
                     count += 1
             turns[k] = n
@@ -161,10 +181,25 @@ def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default):
         if count > 1:
             pm[d] = np.nan
         if turn > 0:
-            p_lo = math.atan2(ims[turn - 1], res[turn - 1]) + TWO_PI * turns[turn - 1]
-            p_hi = math.atan2(ims[turn], res[turn]) + TWO_PI * turns[turn]
+            # The crossing's step walked from its first end (smallsignal._crossings does the same).
+            lo, hi = logf[turn - 1], logf[turn]
+            re0, im0 = res[turn - 1], ims[turn - 1]
+            m = turns[turn - 1]
+            p_lo = math.atan2(im0, re0) + TWO_PI * m
+            x_lo, x_hi, p_hi = lo, hi, p_lo
+            for i in range(1, walk_points + 1):
+                x_hi = lo + i * (hi - lo) / walk_points
+                re, im = _modal(r0, r1, lam, d, math.exp(x_hi))
+                re, im = re * sign, im * sign
+                m += _winding(re0, im0, re, im)
+                p_hi = math.atan2(im, re) + TWO_PI * m
+                # Not reached by the far end (a whole-turn loop inside the step): the last sub-step
+                # stands for the crossing, as in the reference.
+                if p_hi <= -np.pi or i == walk_points:
+                    break
+                x_lo, p_lo, re0, im0 = x_hi, p_hi, re, im
             t = _clip01((p_lo + np.pi) / (1.0 if p_lo == p_hi else p_lo - p_hi))
-            f180 = math.exp(logf[turn - 1] + t * (logf[turn] - logf[turn - 1]))
+            f180 = math.exp(x_lo + t * (x_hi - x_lo))
             re, im = _modal(r0, r1, lam, d, f180)
             gm[d] = -20.0 * math.log10(math.hypot(re, im))
         else:

@@ -278,15 +278,51 @@ def _crossings_compiled(modal: Modal, f_lo: float, f_hi: float, per_decade: int,
     grid = _grid(f_lo, f_hi, per_decade)
     gain = np.ascontiguousarray(modal.dc.real)
     parts = (np.ascontiguousarray(a, complex) for a in (modal.r0, modal.r1, modal.lam))
-    gbw, pm, gm_db, probe = loop_kernels.crossings(gain, *parts, grid, np.log(grid), refine, f_lo)
+    gbw, pm, gm_db, probe = loop_kernels.crossings(gain, *parts, grid, np.log(grid), refine, f_lo,
+                                                   FAST_TURN_POINTS)
     return LoopMetrics(gain=gain, gbw=gbw, phase_margin=pm, gain_margin=gm_db), probe
+
+
+# A grid step over which the principal phase moves by more than a quarter turn may have gone the long way
+# round (a sharp doublet or resonance between two points): np.unwrap takes the short way. Such steps are
+# walked on FAST_TURN_POINTS sub-steps, log-spaced, to learn the way the phase really went; the -180 deg
+# crossing (gain margin) then comes from the phase as it is, not a full turn off.
+FAST_TURN = 0.5 * np.pi
+FAST_TURN_POINTS = 256
+
+
+def _resolve_fast_turns(phase, logf, response):
+    """The grid's unwrapped phase (designs, F) with each fast step's turn read on a finer walk."""
+    step = np.diff(phase, axis=1)
+    fast = np.abs(step) > FAST_TURN
+    count = fast.sum(axis=1)
+    if not count.any():
+        return phase
+    width = int(count.max())
+    order = np.argsort(~fast, axis=1, kind="stable")[:, :width]
+    valid = np.arange(width)[None, :] < count[:, None]
+    rows = np.arange(len(phase))[:, None]
+    # Sub-walks of every fast step side by side, (designs, width, points), both grid ends included.
+    u = np.linspace(0.0, 1.0, FAST_TURN_POINTS + 1)
+    lo, hi = logf[order], logf[order + 1]
+    f = np.exp(lo[:, :, None] + u[None, None, :] * (hi - lo)[:, :, None])
+    h = response(f.reshape(len(phase), -1)).reshape(f.shape)
+    walked = np.unwrap(np.angle(h), axis=2)
+    turn = walked[:, :, -1] - walked[:, :, 0]
+    # The grid's step and the walk's differ by whole turns only: the ends are the same two values.
+    extra = 2 * np.pi * np.round((turn - step[rows, order]) / (2 * np.pi))
+    correction = np.zeros(phase.shape)
+    np.add.at(correction, (np.broadcast_to(rows, order.shape)[valid], order[valid] + 1), extra[valid])
+    return phase + np.cumsum(correction, axis=1)
 
 
 def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine: int) -> LoopMetrics:
     """DC gain, GBW, phase and gain margins of the amplifier used as a unity-gain follower.
 
     A log grid finds the crossings: at 8 points a decade one real pole turns the phase by at most 8 deg a
-    step, so the unwrap follows clusters of poles and all but very sharp resonances and doublets. The grid starts at 1 mHz, below
+    step, so the unwrap follows clusters of poles; a step turning more than a quarter turn (a sharp
+    resonance or doublet) is walked on a fine sub-grid to learn which way it went, and the -180 deg
+    crossing's step is walked too, so the gain margin reads the phase as it is (_resolve_fast_turns). The grid starts at 1 mHz, below
     the second pole of any amplifier worth reporting, so the phase there is within half a turn of its
     true value. `refine` regula-falsi steps on log|A| vs log f then pin the unity-gain frequency to well
     below 0.1 %.
@@ -301,6 +337,7 @@ def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine
     phase -= 2 * np.pi * np.round(phase[:, :1] / (2 * np.pi))
     rows = np.arange(designs)
     logf = np.log(grid)
+    phase = _resolve_fast_turns(phase, logf, lambda f: response(f) * sign[:, None])
 
     below = mag < 0.0
     has_ugf = below.any(axis=1) & ~below[:, 0]
@@ -329,9 +366,20 @@ def _crossings(gain, response, f_lo: float, f_hi: float, per_decade: int, refine
     beyond = phase <= -np.pi
     has_180 = beyond.any(axis=1) & ~beyond[:, 0]
     j = np.where(has_180, np.argmax(beyond, axis=1), 1)
-    p_lo, p_hi = phase[rows, j - 1], phase[rows, j]
+    # The crossing's step walked on the fine sub-grid from its first end: in a fast step the phase is far
+    # from linear in log f.
+    u = np.linspace(0.0, 1.0, FAST_TURN_POINTS + 1)
+    sub = logf[j - 1][:, None] + u[None, :] * (logf[j] - logf[j - 1])[:, None]
+    walked = np.unwrap(np.angle(response(np.exp(sub)) * sign[:, None]), axis=1)
+    walked += 2 * np.pi * np.round((phase[rows, j - 1] - walked[:, 0]) / (2 * np.pi))[:, None]
+    # The walk normally ends on the grid's phase at j and so reaches -180 deg. A doublet that loops a whole
+    # turn inside one step with both ends near the same angle is not seen as a fast step; its walk may
+    # not reach -180 deg, and the step's far end stands for the crossing (the compiled twin does the same).
+    reached = walked <= -np.pi
+    i = np.where(reached.any(axis=1), np.maximum(np.argmax(reached, axis=1), 1), FAST_TURN_POINTS)
+    p_lo, p_hi = walked[rows, i - 1], walked[rows, i]
     t = np.clip((p_lo + np.pi) / np.where(p_lo == p_hi, 1.0, p_lo - p_hi), 0.0, 1.0)
-    f180 = np.exp(logf[j - 1] + t * (logf[j] - logf[j - 1]))
+    f180 = np.exp(sub[rows, i - 1] + t * (sub[rows, i] - sub[rows, i - 1]))
     h180 = response(f180[:, None])[:, 0]
     gm_db = np.where(has_180, -20.0 * np.log10(np.abs(h180)), np.inf)
     return LoopMetrics(gain=gain, gbw=gbw, phase_margin=pm, gain_margin=gm_db)

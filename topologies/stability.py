@@ -34,9 +34,12 @@ Metrics (`stability_metrics`), arrays of shape (designs,), NaN for designs whose
                            turn off (a sharp doublet unwrapped the other way round) reads the same margin
     loop_phase_min_deg     lowest net phase of T (unwrapped continuously from DC, where a loop of
                            negative feedback has 0 deg) at any frequency where |T| > 1, deg
-    conditionally_stable   1 where the closed loop is stable although the loop phase falls below -180 deg
-                           while |T| > 1 (below the crossover): it would go unstable if the loop gain
-                           dropped there (supply, corner, a lower beta); else 0
+    conditionally_stable   1 where the closed loop is stable although the loop phase passes an odd
+                           multiple of -180 deg while |T| > 1 (the Nyquist curve crosses the negative real
+                           axis left of -1): it would go unstable if the loop gain dropped there (supply,
+                           corner, a lower beta); else 0. A loop that passes -180 deg inside the unit circle
+                           and rises above unity again later (a late resonance, phase near -340 deg there)
+                           has loop_phase_min_deg below -180 but is not conditionally stable
     gain_error             static gain error 1 - beta A_CL, A_CL the closed loop's own DC gain from inp (so
                            the input pair's common-mode feedthrough counts); 1 / (1 + A0 beta) in the
                            textbook form (topologies/application.py); inverting, 1 / (1 + T(0)) with the
@@ -51,8 +54,8 @@ slope of its unit step response (from the poles and residues); beyond the slew r
 The largest step the loop follows linearly is V_lin = SR / s_max (SR tau for one pole). A larger step slews
 for (V_step - V_lin) / SR, then settles linearly from the remaining V_lin: the small-signal response must
 reach band * V_step, a band of band * V_step / V_lin in its own terms. t = t_slew + t_linear. The step is
-taken at inp (the non-inverting response); the inverting configuration has the same poles and is read the
-same way.
+taken where the configuration's signal enters: at inp (non-inverting), or through the network at inn with
+inp at the common mode (inverting: the same poles, other zeros, an inverted output).
 """
 
 from __future__ import annotations
@@ -227,10 +230,61 @@ def _phase_reading(response, t0: np.ndarray, f_lo: float, f_hi: float):
     f_min = np.exp(0.5 * (a + b))
     value = response(f_min[:, None])[:, 0]
     refined = ref + np.angle(value * np.exp(-1j * ref))
+    # A dip narrower than a grid step that reaches a lower branch than the grid point it was found from
+    # passes an odd multiple of -180 deg while |T| > 1 (the refinement only looks where |T| > 1).
+    dip = (np.abs(value) > 1.0) & (_branch(refined) < _branch(ref))
     refined = np.where(np.abs(value) > 1.0, refined, np.inf)
     lowest = np.fmin(np.fmin(grid_min, refined), np.where(has_cross, phase_c, np.inf))
     lowest = np.where(above.any(axis=1), np.degrees(lowest), np.nan)
-    return (np.where(has_cross, f_c, 0.0), np.where(has_cross, margin, np.nan), lowest)
+    passes = dip | _passes_left_of_minus_one(response, phase, above, logf, phase_near)
+    return (np.where(has_cross, f_c, 0.0), np.where(has_cross, margin, np.nan), lowest, passes)
+
+
+def _branch(phase):
+    """Which odd multiple of -180 deg a phase (rad) has passed: 0 between -180 and 180 deg, -1 between
+    -540 and -180, and so on."""
+    return np.floor((phase + np.pi) / (2 * np.pi))
+
+
+def _passes_left_of_minus_one(response, phase, above, logf, phase_near):
+    """Designs whose Nyquist curve crosses the negative real axis left of -1: the phase passes an odd
+    multiple of -180 deg while |T| > 1.
+
+    The lowest phase above unity gain alone does not tell: a loop gain that falls below one, passes -180
+    deg inside the unit circle and rises above one again on the far side (a late resonance of the
+    output, phase near -340 deg) has its lowest phase above unity below -180 deg without any such
+    crossing; it is neither unstable nor conditionally stable. Grid steps where the branch changes with
+    |T| > 1 at both ends count as they are; where only one end is above unity, the crossing instant is
+    found by bisection on the phase and |T| read there."""
+    branch = _branch(phase)
+    change = branch[:, 1:] != branch[:, :-1]
+    both = (change & above[:, 1:] & above[:, :-1]).any(axis=1)
+    edge = change & (above[:, 1:] != above[:, :-1])
+    designs = len(phase)
+    count = edge.sum(axis=1)
+    if not count.any():
+        return both
+    # Each design's edge steps side by side, padded with its first one, so all are refined at once.
+    width = int(count.max())
+    order = np.argsort(~edge, axis=1, kind="stable")[:, :width]
+    k = np.where(np.arange(width)[None, :] < count[:, None], order, order[:, :1])
+    rows = np.arange(designs)[:, None]
+    lo, hi = logf[k], logf[k + 1]
+    p_lo, p_hi = phase[rows, k], phase[rows, k + 1]
+    # The odd multiple of -180 deg crossed in that step (the one between its two ends).
+    level = np.pi * (2 * np.maximum(branch[rows, k], branch[rows, k + 1]) - 1)
+    rising = p_hi > p_lo
+    for _ in range(30):
+        mid = 0.5 * (lo + hi)
+        p_mid = np.stack([phase_near(np.exp(mid[:, i]), 0.5 * (p_lo[:, i] + p_hi[:, i])) for i in range(width)],
+                         axis=1)
+        past = (p_mid > level) == rising
+        lo, p_lo = np.where(past, lo, mid), np.where(past, p_lo, p_mid)
+        hi, p_hi = np.where(past, mid, hi), np.where(past, p_mid, p_hi)
+    at = np.stack([np.abs(response(np.exp(0.5 * (lo[:, i] + hi[:, i]))[:, None])[:, 0]) for i in range(width)],
+                  axis=1)
+    valid = np.arange(width)[None, :] < count[:, None]
+    return both | (valid & (at > 1.0)).any(axis=1)
 
 
 def _step(modal: _Modal, finite: np.ndarray, stable: np.ndarray, band=SETTLE_BAND):
@@ -429,6 +483,16 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
     g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta, r_source)
     g_n, c_n = inverting_column(differential, common_mode)
     tau = r_source * input_capacitance(g_n, c_n) if r_source > 0 else None
+    if inverting:
+        # The signal enters through the network at inn, the amplifier's inp held at the common mode:
+        # v(inn) = beta v(out) + (1 - beta) v(sig), so the drive is (1 - beta) times the inn column, or,
+        # behind the network's pole, the extra row's (1 - beta) (closed_loop_matrices). The poles are the
+        # same; the zeros (no feedforward through the input pair from inp) and the sign are not.
+        if r_source > 0:
+            g_p, c_p = np.zeros_like(g_p), np.zeros_like(c_p)
+            g_p[:, -1] = -(1.0 - beta)
+        else:
+            g_p, c_p = (1.0 - beta) * g_n, (1.0 - beta) * c_n
     with np.errstate(all="ignore"):
         closed = _Modal(g, c, g_p, c_p, out)
         finite = _finite_poles(closed.lam)
@@ -461,19 +525,19 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         t0 = -beta * opened.dc.real
         if inverting:
             gain_error = 1.0 / (1.0 + t0)
-        crossover, margin, lowest = _phase_reading(loop, t0, f_lo, f_hi)
+        crossover, margin, lowest, passes = _phase_reading(loop, t0, f_lo, f_hi)
         if bad_open.any():
             rows = np.flatnonzero(bad_open)
             sub = _Modal(g=opened.g[rows], c=opened.c[rows], b0=opened.b0[rows], b1=opened.b1[rows], out=out)
             pole = (lambda f: 1.0) if tau is None else (lambda f: network_pole(f, tau[rows]))
             redo = _phase_reading(lambda f: -beta * sub.direct(f) * pole(f), t0[rows], f_lo, f_hi)
-            for target, value in zip((crossover, margin, lowest), redo):
+            for target, value in zip((crossover, margin, lowest, passes), redo):
                 target[rows] = value
     # The step response has no direct-solve fallback: a near-defective closed loop (coincident poles to
     # within the modal tolerance) reads NaN rather than a number that may be wrong.
     overshoot[bad_closed] = np.nan
     settling[bad_closed] = np.nan
-    conditional = (stable & (lowest < -180.0)).astype(float)
+    conditional = (stable & passes).astype(float)
     metrics = {
         "cl_rhp_poles": rhp,
         "cl_stable": stable.astype(float),

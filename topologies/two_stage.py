@@ -55,7 +55,10 @@ class TwoStageMiller:
             Element("I", "bias_reference", "vdd", "nb", bias.i_ref),
         ]
         metrics = {
-            "slew_v_per_s": np.minimum(fig["i_tail"] / cc, i_sink / (cc + cond.c_load)),
+            # While slewing the driver's gate swings with the Miller capacitor, so its gate-drain overlap
+            # takes part of the tail current with it; the output's own junctions load the sink beside C_L.
+            "slew_v_per_s": np.minimum(fig["i_tail"] / (cc + driver.op.cgd),
+                                       i_sink / (cc + driver.op.cgd + cond.c_load + driver.op.cdb + sink.op.cdb)),
             # The driver's gate can fall to where the first stage's output device leaves saturation.
             "peak_source_a": tech.current("p", w_drv, l_drv, vdd - (vcm - fig["vgs_in"] + first[1].op.vdsat),
                                           vdd - vcm + zero, zero) - i_sink,
