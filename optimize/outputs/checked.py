@@ -11,7 +11,9 @@ from pathlib import Path
 
 import pandas as pd
 
-from ampfront.topologies.catalog import M
+import html
+
+from ampfront.topologies.catalog import AGREEMENT, METRICS, SWING_SLACK_V, M
 
 COLUMNS = ("design", "corner", "metric", "model", "simulated", "error", "bound", "status", "topology")
 NUMBERS = ("model", "simulated", "error", "bound")
@@ -48,10 +50,6 @@ _SIGNED = frozenset({M.out_low_v, M.out_high_v, M.swing_v})
 
 def agreement_html(check: pd.DataFrame | None, titles: dict[str, str]) -> str:
     """Per topology and figure: designs simulated, median and worst error, bound, disagreements."""
-    import html
-
-    from ampfront.topologies.catalog import AGREEMENT, METRICS, SWING_SLACK_V
-
     if check is None:
         return ""
     rows = check[check["simulated"].notna() & check["error"].notna() & check["metric"].isin(METRICS)]

@@ -95,22 +95,24 @@ _OWN_FILE = re.compile(r"^[A-Za-z0-9_.+-]+\.(sp|svg|png)$")
 
 
 def _foreign_inside(folder: Path) -> list[str]:
-    """Entries of an earlier result's sub-folders that its manifest does not list as written by ampfront."""
+    """Files in an earlier result's sub-folders that its manifest does not list as written by ampfront."""
     try:
         listed = json.loads((folder / MANIFEST).read_text(encoding="utf-8")).get("files")
     except (OSError, ValueError, UnicodeDecodeError, AttributeError):
         listed = None
+    ours = set(listed) if isinstance(listed, list) else None
     found = []
     for name in sorted(OWN_ENTRIES):
         sub = folder / name
         if not sub.is_dir() or sub.is_symlink():
             continue
-        for p in sorted(sub.rglob("*")):
+        for p in sorted(q for q in sub.rglob("*") if not q.is_dir()):
             relative = str(p.relative_to(folder))
-            ours = (relative in listed) if isinstance(listed, list) else (
-                p.parent == sub and _OWN_FILE.match(p.name) is not None)
-            if not ours and not (p.is_dir() and isinstance(listed, list)
-                                 and any(f.startswith(relative + os.sep) for f in listed)):
+            if ours is not None:
+                mine = relative in ours
+            else:
+                mine = p.parent == sub and _OWN_FILE.match(p.name) is not None
+            if not mine:
                 found.append(relative)
     return found
 
