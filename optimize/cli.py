@@ -67,6 +67,9 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
         raise typer.Exit(3)
     _say(f"{summary.front_designs} front designs from {summary.evaluations:,} evaluated in {summary.wall_s:.1f} s "
          f"-> {summary.out / 'report.html'}")
+    shown = [f"{n} {v:.4f}" for n, v in summary.hypervolume.items() if v == v]
+    if shown:
+        _say("hypervolume on the study's window (1 = its ideal corner): " + ", ".join(shown))
 
 
 @app.command()

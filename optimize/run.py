@@ -18,6 +18,7 @@ from ampfront.optimize.outputs.folder import CLOSEST, TOOL_MARK, check_destinati
 from ampfront.optimize.outputs.summary import RunSummary
 from ampfront.optimize.outputs.tables import device_table, versions, write_json
 from ampfront.optimize.search.engine import Progress
+from ampfront.optimize.search.hypervolume import window_for
 from ampfront.optimize.search.merge import merged_front
 from ampfront.optimize.spec.corners import corner_set
 from ampfront.optimize.search.outcome import Infeasible, Outcome, TopologyFront
@@ -100,6 +101,7 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     evaluations = sum(o.evaluations for o in outcomes.values())
     summary = RunSummary(final, tech.name, study.seed, evaluations, len(table) if fronts else 0, 0.0, misses)
     summary.rejected = {n: o.rejected for n, o in outcomes.items()}
+    summary.hypervolume = {f.name: f.hypervolume for f in fronts}
     if tech.models_missing:
         summary.warnings.append(f"testbenches cannot run yet: {tech.models_missing}")
     summary.piles = [p for f in fronts for p in f.piles]
@@ -150,5 +152,10 @@ def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:
         "rejected_by_stability": {n: r.record() for n, r in summary.rejected.items()},
         # Variables at whose search bound most of a front sits: the box, not physics, limits it there.
         "at_search_bounds": [p.record() for p in summary.piles],
+        # Hypervolume of each front on a window the study fixes (its own bounds), so runs of one study at
+        # other seeds and budgets compare by one number; and what the refinement spent.
+        "convergence": {"window": window_for(study).record(), "refine_steps": study.refine,
+                        "hypervolume": {n: (round(v, 6) if np.isfinite(v) else None)
+                                        for n, v in summary.hypervolume.items()}},
         "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
     }

@@ -39,6 +39,9 @@ def refresh(folder: Path) -> Path:
         if isinstance(record, dict):
             pool = closest if closest is not None else front
             summary.infeasible[name] = Infeasible.from_record(name, record, pool[pool["topology"] == name])
+    for name, value in ((manifest.get("convergence") or {}).get("hypervolume") or {}).items():
+        if isinstance(value, (int, float)):
+            summary.hypervolume[name] = float(value)
     for name, record in (manifest.get("rejected_by_stability") or {}).items():
         if isinstance(record, dict):
             summary.rejected[name] = Rejections.from_record(record)

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import html
 import json
+import math
 import re
 
 import pandas as pd
@@ -62,9 +63,13 @@ def spec_rows(study: Study) -> list[tuple[str, str]]:
 
 def _facts(study: Study, summary) -> list[tuple[str, str]]:
     facts = [("technology", summary.technology), ("seed", str(summary.seed)),
-             ("population x generations", f"{study.population} x {study.generations}"),
+             ("population x generations", f"{study.population} x {study.generations}"
+              + (f", then {study.refine} refinement steps" if study.refine else "")),
              ("designs evaluated (all topologies)", f"{summary.evaluations:,}"),
              ("front designs", str(summary.front_designs)), ("wall time", f"{summary.wall_s:.1f} s")]
+    if summary.hypervolume:
+        facts.append(("hypervolume on the study's window", ", ".join(
+            f"{n} {v:.4f}" for n, v in summary.hypervolume.items() if math.isfinite(v))))
     facts += [("warning", w) for w in summary.warnings]
     return facts
 

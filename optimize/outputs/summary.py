@@ -21,6 +21,7 @@ class RunSummary:
     warnings: list[str] = field(default_factory=list)
     piles: list = field(default_factory=list)     # search.bounds.Pile
     rejected: dict[str, Rejections] = field(default_factory=dict)   # topology -> designs the stability rules refused
+    hypervolume: dict[str, float] = field(default_factory=dict)     # topology -> on the study's fixed window
 
     @property
     def feasible(self) -> bool:

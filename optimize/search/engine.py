@@ -14,6 +14,8 @@ from pymoo.indicators.hv import HV
 from pymoo.optimize import minimize
 from pymoo.util.ref_dirs import get_reference_directions
 
+from ampfront.optimize.search.refine import refine
+
 # Das-Dennis partitions giving 84 (4 objectives) and 70 (5 objectives) reference directions.
 _PARTITIONS = {4: 6, 5: 4}
 
@@ -62,10 +64,13 @@ class SearchResult:
     feasible: bool         # False: no design met every constraint; X holds the least-violating ones
     history: list[tuple[int, int, float]]
     evaluations: int
+    refined: int = 0       # evaluations the refinement spent (included in `evaluations`)
 
 
 def run_search(problem: Problem, population: int, generations: int, seed: int,
-               progress: Progress | None = None) -> SearchResult:
+               progress: Progress | None = None, refine_steps: int = 0) -> SearchResult:
+    """NSGA-II (or III) for `generations`, then, when refine_steps > 0 and the front is feasible, the
+    trust-region refinement of its ends and levels (search/refine.py), which draws no random numbers."""
     tracker = _Tracker(progress)
     res = minimize(problem, algorithm_for(problem.n_obj, population), ("n_gen", generations),
                    seed=seed, callback=tracker, verbose=False)
@@ -81,5 +86,14 @@ def run_search(problem: Problem, population: int, generations: int, seed: int,
     X, F = X[order], F[order]
     _, unique = np.unique(np.round(X, 12), axis=0, return_index=True)
     keep = np.sort(unique)
-    return SearchResult(X=X[keep], F=F[keep], feasible=ok, history=tracker.history,
-                        evaluations=int(res.algorithm.evaluator.n_eval))
+    X, F = X[keep], F[keep]
+    evaluations, refined = int(res.algorithm.evaluator.n_eval), 0
+    if ok and refine_steps > 0:
+        better = refine(problem, X, F, refine_steps)
+        order = np.lexsort(better.F.T[::-1])
+        X, F = better.X[order], better.F[order]
+        _, unique = np.unique(np.round(X, 12), axis=0, return_index=True)
+        X, F = X[np.sort(unique)], F[np.sort(unique)]
+        refined = better.evaluations
+        evaluations += refined
+    return SearchResult(X=X, F=F, feasible=ok, history=tracker.history, evaluations=evaluations, refined=refined)

@@ -83,6 +83,8 @@ class TopologyFront:
     piles: list = field(default_factory=list)   # search.bounds.Pile: where the box, not physics, decides
     corners: object = None  # topologies.corners.CornerResult of the front designs, for a study with corners
     rejected: Rejections = field(default_factory=Rejections)
+    hypervolume: float = float("nan")   # on the study's fixed window (search/hypervolume.py)
+    refined: int = 0                    # evaluations the refinement spent
 
 
 @dataclass

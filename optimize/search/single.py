@@ -8,6 +8,7 @@ from ampfront import topologies
 from ampfront.optimize.outputs.tables import front_table
 from ampfront.optimize.search.bounds import piles
 from ampfront.optimize.search.engine import Progress, run_search
+from ampfront.optimize.search.hypervolume import window_for
 from ampfront.optimize.search.outcome import STABILITY_RULES, Infeasible, Miss, Outcome, Rejections, TopologyFront
 from ampfront.optimize.search.problem import _BAD, DesignProblem
 from ampfront.optimize.spec.corners import evaluate_study
@@ -58,14 +59,14 @@ def misses(problem: DesignProblem, metrics: dict[str, np.ndarray], row: int) -> 
 def search_topology(study: Study, tech, name: str, progress: Progress | None) -> Outcome:
     topology = topologies.available()[name]
     problem = CountingProblem(topology, tech, study)
-    result = run_search(problem, study.population, study.generations, study.seed, progress)
+    result = run_search(problem, study.population, study.generations, study.seed, progress, study.refine)
     x = problem.decode(result.X)
     metrics, build, corners = evaluate_study(topology, x, tech, study, problem.corners, step=True)
     names = [f"{topology.prefix}_{i + 1:03d}" for i in range(len(result.X))]
     table = front_table(name, names, metrics, build, x, study.constraints, corners)
     if result.feasible:
         return TopologyFront(name, table, build, result.evaluations, result.history, piles(name, problem, result.X),
-                             corners, problem.rejections())
+                             corners, problem.rejections(), window_for(study).hypervolume(result.F), result.refined)
     # The closest design: least total normalized violation (the search's own measure).
     violations = np.column_stack([np.nan_to_num(np.maximum(c.violation(metrics), 0), nan=1e9)
                                   for c in study.constraints])

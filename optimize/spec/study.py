@@ -29,11 +29,14 @@ SPEC_SCHEMA = {
     **{c.key: Field(c.dimension, c.required) for c in CONDITIONS.values() if c.form == "value"},
     **{b.key: Field(b.dimension) for b in BOUNDS.values() if b.form == "value"},
 }
-SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed": Field("int", positive=False)}
+SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed": Field("int", positive=False),
+                 "refine": Field("int", positive=False)}
 # Search sizes a 24 GB, 2-core machine finishes; beyond them a study is a typo, not a plan. pymoo's NSGA-II
-# needs a handful of parents; numpy seeds are unsigned 32-bit.
-SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed": (0, 2**32 - 1)}
-SEARCH_DEFAULTS = {"population": 100, "generations": 60, "seed": 1}
+# needs a handful of parents; numpy seeds are unsigned 32-bit. `refine`: trust-region steps of the refinement
+# after the genetic search (search/refine.py), 0 for none; past a few hundred it has long converged.
+SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed": (0, 2**32 - 1),
+                 "refine": (0, 1_000)}
+SEARCH_DEFAULTS = {"population": 100, "generations": 60, "seed": 1, "refine": 0}
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]")
 _CORNER_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,23}$")
 TOP_KEYS = {"title", "topologies", "objectives", "technology", "corner", "corners", "supply_tolerance", "spec",
@@ -82,6 +85,7 @@ class Study:
     corners: tuple[str, ...] = ()
     supply_tolerance: float = 0.0
     nominal_corner: str | None = None
+    refine: int = 0         # trust-region steps after the genetic search (0: none)
 
 
 def _input_cm(source: str, raw, supply: float) -> tuple[float, float]:
@@ -285,6 +289,7 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
         population=search["population"], generations=search["generations"], seed=search["seed"],
         digest=hashlib.sha256(text.encode("utf-8")).hexdigest(), text=text,
         corners=corner_list, supply_tolerance=tolerance or 0.0, nominal_corner=corner or default_corner(tech_path),
+        refine=search["refine"],
     )
 
 

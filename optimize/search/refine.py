@@ -1,0 +1,85 @@
+"""After the genetic search: each objective's end, then epsilon-constraint runs (Haimes) spread over the front,
+all by the batched trust-region polish (polish.py). Deterministic: no random numbers are drawn here.
+
+The ends come first: each objective alone, from the front design best at it. The levels follow: every run
+minimizes the study's first objective with the others held at a level. With two objectives the levels are
+spaced evenly (in the searched space: log for GBW, power and area) between the two ends, so the front has no
+gap the genetic search left; with more, they are the held values of front designs chosen farthest apart.
+Each level starts from the front design nearest to it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from pymoo.util.nds.non_dominated_sorting import NonDominatedSorting
+
+from ampfront.optimize.search.polish import polish
+
+LEVELS = 64            # epsilon-constraint runs over the front
+
+
+@dataclass
+class Refined:
+    X: np.ndarray
+    F: np.ndarray
+    evaluations: int
+
+
+def spread(F: np.ndarray, count: int) -> np.ndarray:
+    """Indices of `count` rows of F chosen farthest apart (normalized), starting from each objective's best."""
+    if len(F) <= count:
+        return np.arange(len(F))
+    scaled = (F - F.min(axis=0)) / np.maximum(np.ptp(F, axis=0), 1e-12)
+    chosen = list(dict.fromkeys(int(i) for i in np.argmin(F, axis=0)))
+    distance = np.min(np.linalg.norm(scaled[:, None] - scaled[chosen][None], axis=2), axis=1)
+    while len(chosen) < count:
+        nxt = int(np.argmax(distance))
+        chosen.append(nxt)
+        distance = np.minimum(distance, np.linalg.norm(scaled - scaled[nxt], axis=1))
+    return np.array(chosen)
+
+
+def refine(problem, X: np.ndarray, F: np.ndarray, steps: int) -> Refined:
+    """X, F: the genetic search's feasible front (search space, minimized objectives)."""
+    m = F.shape[1]
+    scale = np.maximum(np.ptp(F, axis=0), 1e-3)
+    ends = polish(problem, X[np.argmin(F, axis=0)], np.eye(m, dtype=bool), scale, steps)
+    pool_X, pool_F = np.vstack([X, ends.X]), np.vstack([F, ends.F])
+    evaluations = ends.evaluations
+    if m > 1:
+        levels = _levels(pool_F, ends.F if len(ends.F) == m else None)
+        held_space = (pool_F[:, 1:] - pool_F[:, 1:].min(axis=0)) / scale[1:]
+        wanted = (levels[:, 1:] - pool_F[:, 1:].min(axis=0)) / scale[1:]
+        start = np.argmin(np.linalg.norm(held_space[None] - wanted[:, None], axis=2), axis=1)
+        mask = np.zeros((len(levels), m), bool)
+        mask[:, 0] = True
+        runs = polish(problem, pool_X[start], mask, scale, steps, held=~mask, levels=levels)
+        pool_X, pool_F = np.vstack([pool_X, runs.X]), np.vstack([pool_F, runs.F])
+        evaluations += runs.evaluations
+        if m == 2 and len(runs.started) > 1:
+            # Continuation: each level again, from the solution of the level below it (levels ascend in the
+            # held objective, so that solution is cheaper and the step is short): it escapes the basin the
+            # genetic search's design may have held its run in.
+            got = runs.started
+            again = polish(problem, runs.X[1:], mask[got[:-1]], scale, steps, held=~mask[got[:-1]],
+                           levels=levels[got[:-1]])
+            pool_X, pool_F = np.vstack([pool_X, again.X]), np.vstack([pool_F, again.F])
+            evaluations += again.evaluations
+    front = NonDominatedSorting().do(pool_F, only_non_dominated_front=True)
+    return Refined(pool_X[front], pool_F[front], evaluations)
+
+
+def _levels(F: np.ndarray, ends: np.ndarray | None) -> np.ndarray:
+    """(LEVELS, m): the held objectives' levels (column 0, the one minimized, is NaN)."""
+    m = F.shape[1]
+    if m == 2:
+        front = F[NonDominatedSorting().do(F, only_non_dominated_front=True)]
+        low, high = front[:, 1].min(), front[:, 1].max()
+        if ends is not None:
+            low, high = min(low, ends[1, 1]), max(high, ends[0, 1])
+        held = np.linspace(low, high, LEVELS)[:, None]
+    else:
+        held = F[spread(F, LEVELS), 1:]
+    return np.column_stack([np.full(len(held), np.nan), held])
