@@ -64,22 +64,27 @@ class _Point:
             getattr(self, name)[rows] = getattr(other, name)
 
 
-def _probe(problem, U: np.ndarray) -> tuple[_Point, int]:
-    """Values and forward-difference slopes at every row of U, in one call of the model."""
+def _probe(problem, U: np.ndarray, moving: np.ndarray) -> tuple[_Point, int]:
+    """Values and forward-difference slopes (of the moving coordinates) at every row of U, in one model call."""
     K, n = U.shape
-    step = np.where(U + PROBE <= 1.0, PROBE, -PROBE)
-    probes = np.repeat(U[:, None, :], n + 1, axis=1)
-    probes[:, 1 + np.arange(n), np.arange(n)] += step
+    cols = np.flatnonzero(moving)
+    step = np.where(U[:, cols] + PROBE <= 1.0, PROBE, -PROBE)
+    probes = np.repeat(U[:, None, :], len(cols) + 1, axis=1)
+    probes[:, 1 + np.arange(len(cols)), cols] += step
     out = problem.evaluate(problem.xl + probes.reshape(-1, n) * (problem.xu - problem.xl),
                            return_as_dictionary=True)
-    Fp, Gp = out["F"].reshape(K, n + 1, -1), out["G"].reshape(K, n + 1, -1)
+    Fp, Gp = out["F"].reshape(K, len(cols) + 1, -1), out["G"].reshape(K, len(cols) + 1, -1)
     F, G = Fp[:, 0], Gp[:, 0]
     jumpF, jumpG = Fp[:, 1:] - F[:, None], Gp[:, 1:] - G[:, None]
-    frozen = ((np.abs(Fp[:, 1:]) >= _BIG).any(axis=2) | (np.abs(Gp[:, 1:]) >= _BIG).any(axis=2)
-              | (np.abs(jumpF) > JUMP).any(axis=2) | (np.abs(jumpG) > JUMP).any(axis=2))
-    dF = np.where(frozen[:, :, None], 0.0, jumpF / step[:, :, None]).transpose(0, 2, 1)
-    dG = np.where(frozen[:, :, None], 0.0, jumpG / step[:, :, None]).transpose(0, 2, 1)
-    return _Point(U, F, G, dF, dG, frozen), K * (n + 1)
+    still = ((np.abs(Fp[:, 1:]) >= _BIG).any(axis=2) | (np.abs(Gp[:, 1:]) >= _BIG).any(axis=2)
+             | (np.abs(jumpF) > JUMP).any(axis=2) | (np.abs(jumpG) > JUMP).any(axis=2))
+    dF = np.zeros((K, n, F.shape[1]))
+    dG = np.zeros((K, n, G.shape[1]))
+    dF[:, cols] = np.where(still[:, :, None], 0.0, jumpF / step[:, :, None])
+    dG[:, cols] = np.where(still[:, :, None], 0.0, jumpG / step[:, :, None])
+    frozen = np.ones((K, n), bool)
+    frozen[:, cols] = still
+    return _Point(U, F, G, dF.transpose(0, 2, 1), dG.transpose(0, 2, 1), frozen), K * (len(cols) + 1)
 
 
 def _merit(F, G, z, scale, mask):
@@ -143,16 +148,19 @@ def _hold(point: _Point, z, scale, held) -> _Point:
 
 
 def polish(problem, X: np.ndarray, mask: np.ndarray, scale: np.ndarray, iterations: int,
-           held: np.ndarray | None = None, levels: np.ndarray | None = None) -> Polished:
+           held: np.ndarray | None = None, levels: np.ndarray | None = None,
+           moving: np.ndarray | None = None) -> Polished:
     """Runs P_k from every design of X (feasible, search space) for at most `iterations` steps.
 
     mask (K,m): the objectives each design is asked to move; held (K,m): those it may not worsen
     (an epsilon-constraint run holds every objective but the one it moves); levels (K,m): where a held
-    objective is held (NaN: at the starting design's value); scale (m,): normalizing spans."""
+    objective is held (NaN: at the starting design's value); scale (m,): normalizing spans; moving (n,): the
+    variables it may change (default all; refine.py holds lengths, which the model snaps to a grid)."""
     span = problem.xu - problem.xl
     U = np.clip((np.atleast_2d(X) - problem.xl) / span, 0.0, 1.0)
     K, n = U.shape
-    at, evaluations = _probe(problem, U)
+    moving = np.ones(n, bool) if moving is None else np.asarray(moving, bool)
+    at, evaluations = _probe(problem, U, moving)
     q0 = at.G.shape[1]
     z = at.F.copy() if levels is None else np.where(np.isnan(levels), at.F, levels)
     held = np.zeros_like(mask) if held is None else held
@@ -178,7 +186,7 @@ def polish(problem, X: np.ndarray, mask: np.ndarray, scale: np.ndarray, iteratio
         if d is None:
             break
         promised = merit[idx] - predicted
-        trial, spent = _probe(problem, np.clip(here.U + d, 0.0, 1.0))
+        trial, spent = _probe(problem, np.clip(here.U + d, 0.0, 1.0), moving)
         trial = _hold(trial, z[idx], scale, held[idx])
         evaluations += spent
         new = _merit(trial.F, trial.G, z[idx], scale, mask[idx])

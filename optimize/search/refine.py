@@ -18,6 +18,7 @@ from pymoo.util.nds.non_dominated_sorting import NonDominatedSorting
 from ampfront.optimize.search.polish import polish
 
 LEVELS = 64            # epsilon-constraint runs over the front
+END_STARTS = 4         # each objective's end is sought from this many of the front's best designs at it
 
 
 @dataclass
@@ -41,45 +42,55 @@ def spread(F: np.ndarray, count: int) -> np.ndarray:
     return np.array(chosen)
 
 
+def moving_variables(problem) -> np.ndarray:
+    """Lengths stay where the genetic search put them: the model snaps them to a grid (5 nm, or SKY130's
+    characterized lengths), a staircase no slope describes."""
+    variables = getattr(problem, "design_variables", None)
+    if variables is None:
+        return np.ones(problem.n_var, bool)
+    return np.array([v.unit != "m" for v in variables])
+
+
 def refine(problem, X: np.ndarray, F: np.ndarray, steps: int) -> Refined:
     """X, F: the genetic search's feasible front (search space, minimized objectives)."""
     m = F.shape[1]
+    moving = moving_variables(problem)
     scale = np.maximum(np.ptp(F, axis=0), 1e-3)
-    ends = polish(problem, X[np.argmin(F, axis=0)], np.eye(m, dtype=bool), scale, steps)
+    # An end is a single-objective problem with local optima of its own: several starts, the best kept.
+    starts = np.concatenate([np.argsort(F[:, i], kind="stable")[:END_STARTS] for i in range(m)])
+    asked = np.repeat(np.eye(m, dtype=bool), [min(END_STARTS, len(F))] * m, axis=0)
+    ends = polish(problem, X[starts], asked, scale, steps, moving=moving)
     pool_X, pool_F = np.vstack([X, ends.X]), np.vstack([F, ends.F])
     evaluations = ends.evaluations
     if m > 1:
-        levels = _levels(pool_F, ends.F if len(ends.F) == m else None)
+        levels = _levels(pool_F)
         held_space = (pool_F[:, 1:] - pool_F[:, 1:].min(axis=0)) / scale[1:]
         wanted = (levels[:, 1:] - pool_F[:, 1:].min(axis=0)) / scale[1:]
         start = np.argmin(np.linalg.norm(held_space[None] - wanted[:, None], axis=2), axis=1)
         mask = np.zeros((len(levels), m), bool)
         mask[:, 0] = True
-        runs = polish(problem, pool_X[start], mask, scale, steps, held=~mask, levels=levels)
+        runs = polish(problem, pool_X[start], mask, scale, steps, held=~mask, levels=levels, moving=moving)
         pool_X, pool_F = np.vstack([pool_X, runs.X]), np.vstack([pool_F, runs.F])
         evaluations += runs.evaluations
-        if m == 2 and len(runs.started) > 1:
-            # Continuation: each level again, from the solution of the level below it (levels ascend in the
-            # held objective, so that solution is cheaper and the step is short): it escapes the basin the
-            # genetic search's design may have held its run in.
+        if len(runs.started) > 1 and m == 2:
+            # Each level once more, from the solution of its cheaper neighbour (levels run from the best held
+            # value to the worst, so that is the next one): the genetic design nearest a level may sit in a
+            # basin of its own, and the neighbour's solution is a short step away.
             got = runs.started
             again = polish(problem, runs.X[1:], mask[got[:-1]], scale, steps, held=~mask[got[:-1]],
-                           levels=levels[got[:-1]])
+                           levels=levels[got[:-1]], moving=moving)
             pool_X, pool_F = np.vstack([pool_X, again.X]), np.vstack([pool_F, again.F])
             evaluations += again.evaluations
     front = NonDominatedSorting().do(pool_F, only_non_dominated_front=True)
     return Refined(pool_X[front], pool_F[front], evaluations)
 
 
-def _levels(F: np.ndarray, ends: np.ndarray | None) -> np.ndarray:
-    """(LEVELS, m): the held objectives' levels (column 0, the one minimized, is NaN)."""
+def _levels(F: np.ndarray) -> np.ndarray:
+    """(LEVELS, m): the held objectives' levels (column 0, the one minimized, is NaN). F holds the ends."""
     m = F.shape[1]
     if m == 2:
         front = F[NonDominatedSorting().do(F, only_non_dominated_front=True)]
-        low, high = front[:, 1].min(), front[:, 1].max()
-        if ends is not None:
-            low, high = min(low, ends[1, 1]), max(high, ends[0, 1])
-        held = np.linspace(low, high, LEVELS)[:, None]
+        held = np.linspace(front[:, 1].min(), front[:, 1].max(), LEVELS)[:, None]
     else:
         held = F[spread(F, LEVELS), 1:]
     return np.column_stack([np.full(len(held), np.nan), held])
