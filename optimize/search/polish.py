@@ -191,7 +191,7 @@ def polish(problem, X: np.ndarray, mask: np.ndarray, scale: np.ndarray, iteratio
         evaluations += spent
         new = _merit(trial.F, trial.G, z[idx], scale, mask[idx])
         valid = (np.abs(trial.F) < _BIG).all(axis=1) & (np.abs(trial.G) < _BIG).all(axis=1)
-        ratio = np.where(promised > 1e-12, (merit[idx] - new) / np.maximum(promised, 1e-300), -1.0)
+        ratio = np.divide(merit[idx] - new, promised, out=np.full(len(idx), -1.0), where=promised > 1e-12)
         keep = valid & (ratio > 0.1)
         step = np.abs(d).max(axis=1)
         grow = keep & (ratio > 0.75) & (step >= 0.9 * radius[idx])

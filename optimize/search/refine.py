@@ -18,6 +18,7 @@ from pymoo.util.nds.non_dominated_sorting import NonDominatedSorting
 from ampfront.optimize.search.polish import polish
 
 LEVELS = 64            # epsilon-constraint runs over the front
+LENGTH_ROUNDS = 4      # rounds of one-length-at-a-time moves from each objective's end
 END_STARTS = 4         # each objective's end is sought from this many of the front's best designs at it
 
 
@@ -62,6 +63,10 @@ def refine(problem, X: np.ndarray, F: np.ndarray, steps: int) -> Refined:
     ends = polish(problem, X[starts], asked, scale, steps, moving=moving)
     pool_X, pool_F = np.vstack([X, ends.X]), np.vstack([F, ends.F])
     evaluations = ends.evaluations
+    if len(ends.X):
+        best_X, best_F, spent = _length_rounds(problem, ends, asked, scale, steps, moving)
+        pool_X, pool_F = np.vstack([pool_X, best_X]), np.vstack([pool_F, best_F])
+        evaluations += spent
     if m > 1:
         levels = _levels(pool_F)
         held_space = (pool_F[:, 1:] - pool_F[:, 1:].min(axis=0)) / scale[1:]
@@ -83,6 +88,62 @@ def refine(problem, X: np.ndarray, F: np.ndarray, steps: int) -> Refined:
             evaluations += again.evaluations
     front = NonDominatedSorting().do(pool_F, only_non_dominated_front=True)
     return Refined(pool_X[front], pool_F[front], evaluations)
+
+
+def _length_steps(problem, moving: np.ndarray) -> np.ndarray:
+    """(n,): one length step per length variable in the searched space (0 for the others): the next
+    characterized length of a table technology, or a 25 % longer or shorter one on a 5 nm grid."""
+    tech = getattr(problem, "tech", None)
+    variables = getattr(problem, "design_variables", None)
+    if tech is None or variables is None:
+        return np.zeros(problem.n_var)
+    grid = getattr(tech, "length_grid", None)
+    ratio = np.log10(1.25) if grid is None or len(grid) < 2 else float(np.max(np.diff(np.log10(grid))))
+    return np.array([0.0 if move or not v.log else ratio for move, v in zip(moving, variables)])
+
+
+def _length_rounds(problem, ends, asked, scale, steps, moving, rounds: int = LENGTH_ROUNDS):
+    """Each objective's best end, with one length at a time a step longer or shorter, polished again; the
+    best kept, round after round while one improves. Lengths are a grid the slopes cannot see, and they
+    decide much (gain, and through it the currents everything else needs)."""
+    m = asked.shape[1]
+    step = _length_steps(problem, moving)
+    lengths = np.flatnonzero(step)
+    if not len(lengths):
+        return np.empty((0, problem.n_var)), np.empty((0, m)), 0
+    span = problem.xu - problem.xl
+    which = asked[ends.started].argmax(axis=1)
+    best = {i: int(np.flatnonzero(which == i)[np.argmin(ends.F[which == i, i])]) for i in range(m) if (which == i).any()}
+    best_X = {i: ends.X[k] for i, k in best.items()}
+    best_F = {i: ends.F[k] for i, k in best.items()}
+    spent, found_X, found_F = 0, [], []
+    for _ in range(rounds):
+        starts, objective = [], []
+        for i, x in best_X.items():
+            for j in lengths:
+                for sign in (-1.0, 1.0):
+                    y = x.copy()
+                    y[j] = np.clip(y[j] + sign * step[j], problem.xl[j], problem.xu[j])
+                    if y[j] != x[j]:
+                        starts.append(y), objective.append(i)
+        if not starts:
+            break
+        objective = np.array(objective)
+        runs = polish(problem, np.array(starts), np.eye(m, dtype=bool)[objective], scale, steps, moving=moving)
+        spent += runs.evaluations
+        found_X.append(runs.X), found_F.append(runs.F)
+        improved = False
+        for i in list(best_X):
+            mine = objective[runs.started] == i
+            if mine.any():
+                k = np.flatnonzero(mine)[np.argmin(runs.F[mine, i])]
+                if runs.F[k, i] < best_F[i][i] - 1e-9:
+                    best_X[i], best_F[i], improved = runs.X[k], runs.F[k], True
+        if not improved:
+            break
+    if not found_X:
+        return np.empty((0, problem.n_var)), np.empty((0, m)), spent
+    return np.vstack(found_X), np.vstack(found_F), spent
 
 
 def _levels(F: np.ndarray) -> np.ndarray:
