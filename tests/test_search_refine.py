@@ -65,3 +65,46 @@ def test_two_stage_low_power_end_within_two_percent_of_scipy_de():
     out = problem.evaluate(refined.X, return_as_dictionary=True)
     assert (out["G"] <= 0).all()
     assert refined.refined > 0 and refined.evaluations == plain.evaluations + refined.refined
+
+
+SMALL_REFINED = """
+title = "Refined two-stage"
+topologies = ["two_stage_miller"]
+objectives = ["power", "gbw"]
+technology = "generic180"
+
+[spec]
+supply = "1.8 V"
+load_capacitance = "2 pF"
+min_gain = "60 dB"
+min_gbw = "2 MHz"
+max_power = "2 mW"
+
+[search]
+population = 40
+generations = 15
+refine = 10
+"""
+
+
+def test_manifest_hypervolume_is_pymoo_hv_of_front_csv_on_the_spec_window(tmp_path):
+    """The stored number, recomputed from front.csv alone with pymoo's HV on the window the README states:
+    from each objective's spec bound to three decades better (log power, log GBW)."""
+    import pandas as pd
+    from pymoo.indicators.hv import HV
+
+    from ampfront.optimize.run import run_study
+
+    study = tmp_path / "study.toml"
+    study.write_text(SMALL_REFINED)
+    run_study(study, tmp_path / "out")
+    manifest = json.loads((tmp_path / "out" / "manifest.json").read_text())
+    front = pd.read_csv(tmp_path / "out" / "front.csv")
+    F = np.column_stack([np.log10(front["power_w"]), -np.log10(front["gbw_hz"])])
+    reference = np.array([np.log10(2e-3), -np.log10(2e6)])
+    scaled = np.maximum((F - (reference - 3.0)) / 3.0, 0.0)
+    expected = HV(ref_point=np.ones(2))(scaled[(scaled < 1).all(axis=1)])
+    stored = manifest["convergence"]["hypervolume"]["two_stage_miller"]
+    assert stored == pytest.approx(expected, rel=1e-5)
+    assert manifest["convergence"]["refine_steps"] == 10
+    assert stored > 0

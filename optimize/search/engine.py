@@ -89,7 +89,7 @@ def run_search(problem: Problem, population: int, generations: int, seed: int,
     X, F = X[keep], F[keep]
     evaluations, refined = int(res.algorithm.evaluator.n_eval), 0
     if ok and refine_steps > 0:
-        better = refine(problem, X, F, refine_steps)
+        better = refine(problem, X, F, refine_steps, seed)
         order = np.lexsort(better.F.T[::-1])
         X, F = better.X[order], better.F[order]
         _, unique = np.unique(np.round(X, 12), axis=0, return_index=True)

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 from pymoo.util.nds.non_dominated_sorting import NonDominatedSorting
 
+from ampfront.optimize.search.ends import de_end
 from ampfront.optimize.search.polish import polish
 
 LEVELS = 64            # epsilon-constraint runs over the front
@@ -52,17 +53,23 @@ def moving_variables(problem) -> np.ndarray:
     return np.array([v.unit != "m" for v in variables])
 
 
-def refine(problem, X: np.ndarray, F: np.ndarray, steps: int) -> Refined:
+def refine(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int = 1) -> Refined:
     """X, F: the genetic search's feasible front (search space, minimized objectives)."""
     m = F.shape[1]
     moving = moving_variables(problem)
     scale = np.maximum(np.ptp(F, axis=0), 1e-3)
-    # An end is a single-objective problem with local optima of its own: several starts, the best kept.
-    starts = np.concatenate([np.argsort(F[:, i], kind="stable")[:END_STARTS] for i in range(m)])
-    asked = np.repeat(np.eye(m, dtype=bool), [min(END_STARTS, len(F))] * m, axis=0)
-    ends = polish(problem, X[starts], asked, scale, steps, moving=moving)
+    # An end is a single-objective problem with local optima of its own: differential evolution from the
+    # front's best, and the front's best themselves, all polished.
+    found, evaluations = [], 0
+    for i in range(m):
+        x, spent = de_end(problem, X, F, i, seed)
+        evaluations += spent
+        found.append(np.atleast_2d(x) if x is not None else np.empty((0, problem.n_var)))
+    starts = [np.vstack([found[i], X[np.argsort(F[:, i], kind="stable")[:END_STARTS]]]) for i in range(m)]
+    asked = np.repeat(np.eye(m, dtype=bool), [len(s) for s in starts], axis=0)
+    ends = polish(problem, np.vstack(starts), asked, scale, steps, moving=moving)
     pool_X, pool_F = np.vstack([X, ends.X]), np.vstack([F, ends.F])
-    evaluations = ends.evaluations
+    evaluations += ends.evaluations
     if len(ends.X):
         best_X, best_F, spent = _length_rounds(problem, ends, asked, scale, steps, moving)
         pool_X, pool_F = np.vstack([pool_X, best_X]), np.vstack([pool_F, best_F])
