@@ -110,8 +110,9 @@ def phase_reading(r0, r1, lam, beta, tau, t0, grid, logf):
                 correction += ddmod - dd
             previous = angle
             phase[k] = angle + correction
-            mag[k] = math.log(math.hypot(re, im))
-            above[k] = mag[k] > 0.0
+            # |T| > 1 is log|T| > 0; the logarithm is taken only where the crossover interpolates.
+            mag[k] = math.hypot(re, im)
+            above[k] = mag[k] > 1.0
             any_above = any_above or above[k]
         shift = start - first
         for k in range(points):
@@ -124,7 +125,7 @@ def phase_reading(r0, r1, lam, beta, tau, t0, grid, logf):
                 last = k
         has_cross = last >= 0 and above[0]
         k = (last if has_cross else 0) + 1
-        lo_f, hi_f, lo_m, hi_m = logf[k - 1], logf[k], mag[k - 1], mag[k]
+        lo_f, hi_f, lo_m, hi_m = logf[k - 1], logf[k], math.log(mag[k - 1]), math.log(mag[k])
         for _ in range(8):
             t = _clip01(lo_m / (1.0 if lo_m == hi_m else lo_m - hi_m))
             mid = lo_f + t * (hi_f - lo_f)
