@@ -9,6 +9,7 @@ import time
 import numpy as np
 
 from ampfront import topologies
+from ampfront.topologies import kernels
 
 from ampfront.optimize.search.problem import DesignProblem
 from ampfront.optimize.search.engine import run_search
@@ -23,7 +24,12 @@ def _machine() -> str:
             cpu = next(line.split(":", 1)[1].strip() for line in handle if line.startswith("model name"))
     except (OSError, StopIteration):
         pass
-    return f"{cpu}, {os.cpu_count()} cores, Python {platform.python_version()}, numpy {np.__version__}"
+    try:
+        import numba
+        compiled = f"numba {numba.__version__}" if kernels.enabled() else "compiled kernels off"
+    except ImportError:
+        compiled = "no numba (numpy reference path)"
+    return f"{cpu}, {os.cpu_count()} cores, Python {platform.python_version()}, numpy {np.__version__}, {compiled}"
 
 
 def _bench_study(tech_path) -> Study:

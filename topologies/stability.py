@@ -525,8 +525,11 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
 
         # Probe the modal forms where they matter: at the dominant closed-loop pole's frequency.
         probe = np.where(pole_hz > 0, pole_hz, 1.0)[:, None] * np.array([0.5, 1.0, 2.0])
-        bad_closed = closed.checked(probe)
-        if step or settle is not None:
+        # Only the step response reads the closed loop's modal form away from its poles; the search's
+        # figures (poles, residue weights, DC gain) do not need the check.
+        wants_step = step or settle is not None
+        bad_closed = closed.checked(probe) if wants_step else np.zeros(designs, bool)
+        if wants_step:
             overshoot, settling, slope = _step(closed, finite, stable)
         else:
             overshoot, settling = np.full(designs, np.nan), np.full(designs, np.nan)

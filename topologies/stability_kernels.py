@@ -36,11 +36,18 @@ def _loop(r0, r1, lam, d, beta, tau, f):
 _loop = compiled(_loop)
 
 
+def _phase_turned(r0, r1, lam, d, beta, tau, f, ref, c, s):
+    """Phase of T at f on the branch within half a turn of ref, given c, s = cos(ref), sin(ref); also |T|."""
+    re, im = _loop(r0, r1, lam, d, beta, tau, f)
+    return ref + math.atan2(im * c - re * s, re * c + im * s), math.hypot(re, im)
+
+
+_phase_turned = compiled(_phase_turned)
+
+
 def _phase_near(r0, r1, lam, d, beta, tau, f, ref):
     """Phase of T at f on the branch within half a turn of ref (stability._phase_reading.phase_near); also |T|."""
-    re, im = _loop(r0, r1, lam, d, beta, tau, f)
-    c, s = math.cos(ref), math.sin(ref)
-    return ref + math.atan2(im * c - re * s, re * c + im * s), math.hypot(re, im)
+    return _phase_turned(r0, r1, lam, d, beta, tau, f, ref, math.cos(ref), math.sin(ref))
 
 
 _phase_near = compiled(_phase_near)
@@ -154,15 +161,16 @@ def phase_reading(r0, r1, lam, beta, tau, t0, grid, logf):
                 j, grid_min = i, value
         a, b = logf[max(j - 1, 0)], logf[min(j + 1, points - 1)]
         ref = phase[j]
+        c, s = math.cos(ref), math.sin(ref)     # one reference for the whole search
         for _ in range(12):
             x1, x2 = b - GOLDEN * (b - a), a + GOLDEN * (b - a)
-            p1, _ = _phase_near(r0, r1, lam, d, beta, tau, math.exp(x1), ref)
-            p2, _ = _phase_near(r0, r1, lam, d, beta, tau, math.exp(x2), ref)
+            p1, _ = _phase_turned(r0, r1, lam, d, beta, tau, math.exp(x1), ref, c, s)
+            p2, _ = _phase_turned(r0, r1, lam, d, beta, tau, math.exp(x2), ref, c, s)
             if p1 < p2:
                 b = x2
             else:
                 a = x1
-        refined, size = _phase_near(r0, r1, lam, d, beta, tau, math.exp(0.5 * (a + b)), ref)
+        refined, size = _phase_turned(r0, r1, lam, d, beta, tau, math.exp(0.5 * (a + b)), ref, c, s)
         dip = size > 1.0 and _branch(refined) < _branch(ref)
         if not size > 1.0:
             refined = np.inf
