@@ -107,13 +107,13 @@ def phase_reading(r0, r1, lam, beta, tau, t0, grid, logf):
                 re, im = (re + im * x) * scale, (im - re * x) * scale
             angle = math.atan2(im, re)
             dd = angle - previous
-            ddmod = np.fmod(dd + np.pi, TWO_PI)
-            if ddmod != 0.0 and ddmod < 0.0:
-                ddmod += TWO_PI
-            ddmod -= np.pi
-            if ddmod == -np.pi and dd > 0:
-                ddmod = np.pi
             if not abs(dd) < np.pi:      # a NaN step carries on as NaN, as in np.unwrap
+                ddmod = np.fmod(dd + np.pi, TWO_PI)
+                if ddmod != 0.0 and ddmod < 0.0:
+                    ddmod += TWO_PI
+                ddmod -= np.pi
+                if ddmod == -np.pi and dd > 0:
+                    ddmod = np.pi
                 correction += ddmod - dd
             previous = angle
             phase[k] = angle + correction
