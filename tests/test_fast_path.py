@@ -147,3 +147,21 @@ def test_loop_reading_matches_the_reference_on_hard_responses(modes):
     for f, r in zip(fast[:3], ref[:3]):
         _same(f, r, 1e-9)
     np.testing.assert_array_equal(fast[3], ref[3])
+
+
+def test_quarantine_screen_matches_the_reference():
+    """The compiled screen for unusable circuits flags exactly the designs numpy's does: NaN, inf or a
+    value beyond the limit anywhere in the block, the rest of the matrix ignored."""
+    from ampfront.topologies.evaluate import _unusable
+
+    rng = np.random.default_rng(2)
+    a = rng.uniform(-1.0, 1.0, (4000, 7, 7))
+    for value in (np.nan, np.inf, -np.inf, 2.5, -2.5):
+        rows = rng.choice(4000, 300, replace=False)
+        a[rows, rng.integers(0, 7, 300), rng.integers(0, 7, 300)] = value
+    for size in (7, 6):
+        fast = _unusable(a, size, 2.0)
+        with kernels.reference_path():
+            ref = _unusable(a, size, 2.0)
+        assert 0.2 < ref.mean() < 0.4
+        np.testing.assert_array_equal(fast, ref)

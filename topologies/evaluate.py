@@ -10,6 +10,7 @@ from .base import Build, Conditions, Topology
 from .catalog import is_headroom
 from .errors import PluginError
 from .process.base import Technology
+from . import kernels, quarantine_kernels
 from .kcl import node_imbalance
 from .noise import noise_metrics
 from .smallsignal import Circuit, loop_metrics
@@ -60,24 +61,28 @@ LOAD_LINE_SHARE = 0.75
 MAX_CAPACITANCE = 1.0   # F
 
 
+def _unusable(a: np.ndarray, size: int, limit: float) -> np.ndarray:
+    """Designs whose leading size x size block of `a` holds NaN, inf or a magnitude beyond `limit`."""
+    if kernels.enabled():
+        return quarantine_kernels.unusable_rows(a, size, limit)
+    block = a[:, :size, :size]
+    with np.errstate(invalid="ignore"):
+        # Rows holding NaN or inf are caught by isfinite; on the others the plain maximum decides.
+        return ~np.isfinite(block).all(axis=(1, 2)) | (np.abs(block).max(axis=(1, 2)) > limit)
+
+
 def _quarantine(circuit: Circuit, singular=None) -> None:
     """Designs whose circuit holds NaN or inf (a dead or off-table device) get a harmless identity circuit,
     so one of them cannot stop LAPACK for the whole population; `evaluate` marks them NaN afterwards."""
-    bad = ~(np.isfinite(circuit.G).all(axis=(1, 2)) & np.isfinite(circuit.C).all(axis=(1, 2)))
     # Beyond a kilosiemens or a farad nothing is an integrated amplifier: such values come from design
     # vectors far outside the search box and only make LAPACK see singular matrices.
-    # Rows holding NaN or inf are bad already; on the others the plain maximum is the same as with
-    # nan_to_num, without copying the matrices.
-    with np.errstate(invalid="ignore"):
-        bad |= (np.abs(circuit.G).max(axis=(1, 2)) > MAX_CONDUCTANCE) | (
-            np.abs(circuit.C).max(axis=(1, 2)) > MAX_CAPACITANCE)
-    n = len(circuit.nodes)
+    n, size = len(circuit.nodes), circuit.G.shape[1]
+    bad = _unusable(circuit.G, size, MAX_CONDUCTANCE) | _unusable(circuit.C, size, MAX_CAPACITANCE)
     if singular is None:
         # Judged on the node block alone (identity where the block itself is unusable), so every mode of
         # the same circuit can take it over: a design this mode keeps has a usable block, read as it is.
         block = circuit.G[:, :n, :n]
-        with np.errstate(invalid="ignore"):
-            unusable = ~np.isfinite(block).all(axis=(1, 2)) | (np.abs(block).max(axis=(1, 2)) > MAX_CONDUCTANCE)
+        unusable = _unusable(circuit.G, n, MAX_CONDUCTANCE)
         sign, _ = np.linalg.slogdet(np.where(unusable[:, None, None], np.eye(n), block))
         singular = sign == 0
     circuit.block_singular = singular
