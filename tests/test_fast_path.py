@@ -21,7 +21,10 @@ pytestmark = pytest.mark.skipif(not kernels.enabled(), reason="numba not importa
 
 METRICS = ("gain_db", "gbw_hz", "phase_margin_deg", "gain_margin_db", "rhp_poles", "power_w", "noise_rms_v",
            "noise_thermal_v_rthz", "noise_flicker_1hz_v_rthz", "noise_corner_hz", "cmrr_db", "psrr_db",
-           "output_resistance_ohm", "slew_v_per_us", "swing_v", "sat_min_v", "dc_residual")
+           "output_resistance_ohm", "slew_v_per_us", "swing_v", "sat_min_v", "dc_residual",
+           # The loop closed at beta (topologies/stability.py, compiled in stability_kernels.py).
+           "cl_rhp_poles", "cl_stable", "cl_pole_hz", "cl_damping", "loop_crossover_hz", "loop_phase_margin_deg",
+           "loop_phase_min_deg", "conditionally_stable", "gain_error")
 
 
 def _same(fast, ref, rtol):
@@ -43,6 +46,26 @@ def test_metrics_match_the_reference(name, tech_name):
     # The comparison must cover designs with a real loop, not only NaN rows.
     assert np.isfinite(ref["phase_margin_deg"]).sum() >= 20
     for key in METRICS:
+        if key in ref:
+            _same(fast[key], ref[key], 1e-9)
+
+
+@pytest.mark.parametrize("inverting", [False, True])
+@pytest.mark.parametrize("name", ["two_stage_miller", "folded_cascode_ab"])
+def test_applied_loop_matches_the_reference(name, inverting):
+    """A feedback network at beta 0.1: its pole with the input capacitance joins the return ratio the
+    compiled reading evaluates, and the inverting drive changes the closed loop's input column."""
+    from dataclasses import replace
+
+    tech = load(shipped()["generic180"])
+    topology = topologies.available()[name]
+    cond = replace(DEMO_CONDITIONS, beta=0.1, r_network=200e3, inverting=inverting)
+    x = random_designs(topology, tech, 1200 if name.endswith("_ab") else 300, seed=3)
+    fast, _ = evaluate(topology, x, tech, cond, step=True)
+    with kernels.reference_path():
+        ref, _ = evaluate(topology, x, tech, cond, step=True)
+    assert np.isfinite(ref["loop_phase_margin_deg"]).sum() >= 20
+    for key in METRICS + ("overshoot_pct", "settling_s"):
         if key in ref:
             _same(fast[key], ref[key], 1e-9)
 
@@ -99,3 +122,46 @@ def test_table_kernels_match_the_reference(polarity):
             ref = call()
         assert 0.3 < np.isfinite(ref).mean() < 0.95, name
         _same(fast, ref, 1e-13)
+
+
+@pytest.mark.parametrize("modes", [2, 5])
+def test_loop_reading_matches_the_reference_on_hard_responses(modes):
+    """The return ratio's reading (crossover, margin, lowest phase above unity, crossings left of -1) on
+    random pole sets whose loop gain crosses unity and -180 deg several times, with a network pole."""
+    from ampfront.topologies import stability as st
+
+    modal = _synthetic_modal(3000, modes, seed=10 + modes)
+    rng = np.random.default_rng(modes)
+    tau = np.where(rng.random(3000) < 0.5, 10.0 ** rng.uniform(-9, -3, 3000), 0.0)
+    beta = 0.3
+    t0 = -beta * modal.dc.real
+
+    def loop(f):
+        return -beta * st._Modal.response(modal, f) * st.network_pole(f, tau)
+
+    with np.errstate(all="ignore"), kernels.reference_path():
+        ref = st._phase_reading(loop, t0, 1e-3, 1e11)
+    with np.errstate(all="ignore"):
+        fast = st._phase_reading_compiled(modal, beta, tau, t0, 1e-3, 1e11)
+    assert 100 < ref[3].sum() < 2900 and np.isfinite(ref[1]).sum() > 100
+    for f, r in zip(fast[:3], ref[:3]):
+        _same(f, r, 1e-9)
+    np.testing.assert_array_equal(fast[3], ref[3])
+
+
+def test_quarantine_screen_matches_the_reference():
+    """The compiled screen for unusable circuits flags exactly the designs numpy's does: NaN, inf or a
+    value beyond the limit anywhere in the block, the rest of the matrix ignored."""
+    from ampfront.topologies.evaluate import _unusable
+
+    rng = np.random.default_rng(2)
+    a = rng.uniform(-1.0, 1.0, (4000, 7, 7))
+    for value in (np.nan, np.inf, -np.inf, 2.5, -2.5):
+        rows = rng.choice(4000, 300, replace=False)
+        a[rows, rng.integers(0, 7, 300), rng.integers(0, 7, 300)] = value
+    for size in (7, 6):
+        fast = _unusable(a, size, 2.0)
+        with kernels.reference_path():
+            ref = _unusable(a, size, 2.0)
+        assert 0.2 < ref.mean() < 0.4
+        np.testing.assert_array_equal(fast, ref)

@@ -10,6 +10,7 @@ from .base import Build, Conditions, Topology
 from .catalog import is_headroom
 from .errors import PluginError
 from .process.base import Technology
+from . import kernels, quarantine_kernels
 from .kcl import node_imbalance
 from .noise import noise_metrics
 from .smallsignal import Circuit, loop_metrics
@@ -23,7 +24,11 @@ from .stability import stability_from_circuits
 DRIVES = {"differential": ("inp", ("inn",)), "common_mode": (("inp", "inn"), ()), "supply": ("vdd", ("inp", "inn"))}
 
 
-def small_signal(build: Build, cond: Conditions, mode: str = "differential") -> Circuit:
+def small_signal(build: Build, cond: Conditions, mode: str = "differential", singular=None) -> Circuit:
+    """The Build's small-signal circuit driven as `mode` says. `singular`: the designs whose node block
+    (G without the driven column) is exactly singular, from another mode's circuit of the same Build and
+    conditions: the drive changes only the last row and column, so the block and its determinant are the
+    same (`Circuit.block_singular`)."""
     nodes = sorted({n for d in build.devices for n in d.nodes}
                    | {n for e in build.elements for n in (e.a, e.b)} | {"out"})
     nodes = [n for n in nodes if n not in ("inp", "inn", "vdd", "vss", "0")]
@@ -43,7 +48,7 @@ def small_signal(build: Build, cond: Conditions, mode: str = "differential") -> 
     circuit.capacitor("out", "0", cond.c_load)
     if np.isfinite(cond.r_load):
         circuit.resistor("out", "0", cond.r_load)
-    _quarantine(circuit)
+    _quarantine(circuit, singular)
     return circuit
 
 
@@ -56,17 +61,32 @@ LOAD_LINE_SHARE = 0.75
 MAX_CAPACITANCE = 1.0   # F
 
 
-def _quarantine(circuit: Circuit) -> None:
+def _unusable(a: np.ndarray, size: int, limit: float) -> np.ndarray:
+    """Designs whose leading size x size block of `a` holds NaN, inf or a magnitude beyond `limit`."""
+    if kernels.enabled():
+        return quarantine_kernels.unusable_rows(a, size, limit)
+    block = a[:, :size, :size]
+    with np.errstate(invalid="ignore"):
+        # Rows holding NaN or inf are caught by isfinite; on the others the plain maximum decides.
+        return ~np.isfinite(block).all(axis=(1, 2)) | (np.abs(block).max(axis=(1, 2)) > limit)
+
+
+def _quarantine(circuit: Circuit, singular=None) -> None:
     """Designs whose circuit holds NaN or inf (a dead or off-table device) get a harmless identity circuit,
     so one of them cannot stop LAPACK for the whole population; `evaluate` marks them NaN afterwards."""
-    bad = ~(np.isfinite(circuit.G).all(axis=(1, 2)) & np.isfinite(circuit.C).all(axis=(1, 2)))
     # Beyond a kilosiemens or a farad nothing is an integrated amplifier: such values come from design
     # vectors far outside the search box and only make LAPACK see singular matrices.
-    bad |= (np.abs(np.nan_to_num(circuit.G)).max(axis=(1, 2)) > MAX_CONDUCTANCE) | (
-        np.abs(np.nan_to_num(circuit.C)).max(axis=(1, 2)) > MAX_CAPACITANCE)
-    n = len(circuit.nodes)
-    sign, _ = np.linalg.slogdet(np.where(bad[:, None, None], np.eye(n), circuit.G[:, :n, :n]))
-    bad |= sign == 0
+    n, size = len(circuit.nodes), circuit.G.shape[1]
+    bad = _unusable(circuit.G, size, MAX_CONDUCTANCE) | _unusable(circuit.C, size, MAX_CAPACITANCE)
+    if singular is None:
+        # Judged on the node block alone (identity where the block itself is unusable), so every mode of
+        # the same circuit can take it over: a design this mode keeps has a usable block, read as it is.
+        block = circuit.G[:, :n, :n]
+        unusable = _unusable(circuit.G, n, MAX_CONDUCTANCE)
+        sign, _ = np.linalg.slogdet(np.where(unusable[:, None, None], np.eye(n), block))
+        singular = sign == 0
+    circuit.block_singular = singular
+    bad |= singular
     circuit.quarantined = bad
     if bad.any():
         circuit.G[bad] = np.eye(circuit.G.shape[1])
@@ -94,7 +114,8 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         # Open-loop output resistance, inputs at AC ground, without the load resistor.
         unloaded = circuit if not np.isfinite(cond.r_load) else small_signal(build, replace(cond, r_load=np.inf))
         r_out = unloaded.transimpedance("out")("out")
-        common, supply = small_signal(build, cond, "common_mode"), small_signal(build, cond, "supply")
+        common = small_signal(build, cond, "common_mode", circuit.block_singular)
+        supply = small_signal(build, cond, "supply", circuit.block_singular)
         a_cm, a_dd = common.dc_gain("out"), supply.dc_gain("out")
         unsolved = circuit.quarantined | unloaded.quarantined | common.quarantined | supply.quarantined
         settle = (build.metrics.get("slew_v_per_s"), cond.step_v, cond.settle_band) if settles else None

@@ -98,19 +98,39 @@ def _winding(re0, im0, re1, im1):
 _winding = compiled(_winding)
 
 
-def _walk_turns(r0, r1, lam, d, sign, lo, hi, re0, im0, points):
+def _walk_turns(r0, r1, lam, d, sign, lo, hi, re0, im0, points, w, res, ims):
     """Turns the phase takes from grid point lo (response re0, im0) to hi, walked on `points` log-spaced
-    sub-steps (smallsignal._resolve_fast_turns): the way a fast step really went round."""
-    n = 0
+    sub-steps (smallsignal._resolve_fast_turns): the way a fast step really went round. The sub-steps'
+    responses come from one vectorized _modal_grid pass (the same sums as _modal, point by point) into
+    the scratch arrays w, res, ims of length `points`."""
     for i in range(1, points + 1):
-        re, im = _modal(r0, r1, lam, d, math.exp(lo + (hi - lo) * i / points))
-        re, im = re * sign, im * sign
+        w[i - 1] = TWO_PI * math.exp(lo + (hi - lo) * i / points)
+    _modal_grid(r0, r1, lam, d, w, res, ims)
+    n = 0
+    for i in range(points):
+        re, im = res[i] * sign, ims[i] * sign
         n += _winding(re0, im0, re, im)
         re0, im0 = re, im
     return n
 
 
 _walk_turns = compiled(_walk_turns)
+
+
+def _reaches_half_turn(re, im, m):
+    """atan2(im, re) + 2 pi m <= -pi, the unwrapped phase at or past -180 deg, without the arctangent where
+    the turn count decides it: atan2 lies in [-pi, pi], so m <= -1 always reaches and m >= 1 never does;
+    m = 0 reaches only at -pi itself (the negative real axis approached from below). NaN never reaches."""
+    if math.isnan(re) or math.isnan(im):
+        return False
+    if m <= -1:
+        return True
+    if m >= 1:
+        return False
+    return re < 0.0 and im <= 0.0 and math.atan2(im, re) <= -np.pi
+
+
+_reaches_half_turn = compiled(_reaches_half_turn)
 
 
 def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default, walk_points):
@@ -124,6 +144,9 @@ def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default, walk_point
     probe = np.empty(designs, np.complex128)
     res, ims, turns = np.empty(points), np.empty(points), np.empty(points, np.int64)
     w = TWO_PI * grid
+    # Scratch for the sub-step walks; the -180 deg walk goes in chunks, as it usually stops early.
+    sub_w, sub_re, sub_im = np.empty(walk_points), np.empty(walk_points), np.empty(walk_points)
+    chunk = min(32, walk_points)
     for d in range(designs):
         sign = -1.0 if gain[d] < 0 else 1.0
         first, count, turn = -1, 0, -1
@@ -137,7 +160,7 @@ def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default, walk_point
                 if res[k - 1] * re + ims[k - 1] * im < 0.0:
                     # More than a quarter turn in one step: walk it (smallsignal.FAST_TURN).
                     n += _walk_turns(r0, r1, lam, d, sign, logf[k - 1], logf[k], res[k - 1], ims[k - 1],
-                                     walk_points)
+                                     walk_points, sub_w, sub_re, sub_im)
                 else:
                     n += _winding(res[k - 1], ims[k - 1], re, im)
                 if below != previous_below:
@@ -185,19 +208,30 @@ def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default, walk_point
             lo, hi = logf[turn - 1], logf[turn]
             re0, im0 = res[turn - 1], ims[turn - 1]
             m = turns[turn - 1]
-            p_lo = math.atan2(im0, re0) + TWO_PI * m
-            x_lo, x_hi, p_hi = lo, hi, p_lo
-            for i in range(1, walk_points + 1):
-                x_hi = lo + i * (hi - lo) / walk_points
-                re, im = _modal(r0, r1, lam, d, math.exp(x_hi))
-                re, im = re * sign, im * sign
-                m += _winding(re0, im0, re, im)
-                p_hi = math.atan2(im, re) + TWO_PI * m
-                # Not reached by the far end (a whole-turn loop inside the step): the last sub-step
-                # stands for the crossing, as in the reference.
-                if p_hi <= -np.pi or i == walk_points:
+            m_lo = m
+            x_lo, x_hi = lo, hi
+            re, im = re0, im0
+            done = False
+            for start in range(1, walk_points + 1, chunk):
+                stop = min(start + chunk, walk_points + 1)
+                for i in range(start, stop):
+                    sub_w[i - start] = TWO_PI * math.exp(lo + i * (hi - lo) / walk_points)
+                _modal_grid(r0, r1, lam, d, sub_w[:stop - start], sub_re[:stop - start], sub_im[:stop - start])
+                for i in range(start, stop):
+                    x_hi = lo + i * (hi - lo) / walk_points
+                    re, im = sub_re[i - start] * sign, sub_im[i - start] * sign
+                    m += _winding(re0, im0, re, im)
+                    # Not reached by the far end (a whole-turn loop inside the step): the last sub-step
+                    # stands for the crossing, as in the reference.
+                    if _reaches_half_turn(re, im, m) or i == walk_points:
+                        done = True
+                        break
+                    x_lo, re0, im0, m_lo = x_hi, re, im, m
+                if done:
                     break
-                x_lo, p_lo, re0, im0 = x_hi, p_hi, re, im
+            # The two phases the crossing is interpolated between, as the walk would have read them.
+            p_lo = math.atan2(im0, re0) + TWO_PI * m_lo
+            p_hi = math.atan2(im, re) + TWO_PI * m
             t = _clip01((p_lo + np.pi) / (1.0 if p_lo == p_hi else p_lo - p_hi))
             f180 = math.exp(x_lo + t * (x_hi - x_lo))
             re, im = _modal(r0, r1, lam, d, f180)

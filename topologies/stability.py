@@ -63,7 +63,7 @@ from __future__ import annotations
 import numpy as np
 
 from .base import Build, Conditions
-from . import kernels
+from . import kernels, stability_kernels
 from .loop_kernels import modal_grid_all
 from .smallsignal import Circuit, solve_batched
 
@@ -138,7 +138,14 @@ class _Modal:
     def checked(self, freqs) -> np.ndarray:
         """Designs whose modal response misses the direct one at `freqs` (near-defective eigenvectors)."""
         with np.errstate(all="ignore"):
-            fast, slow = self.response(freqs), self.direct(freqs)
+            if kernels.enabled():
+                # Rounding differs from LAPACK's far below MODAL_TOLERANCE, so the same designs fail.
+                freqs = np.ascontiguousarray(np.broadcast_to(np.asarray(freqs, float),
+                                                             (len(self.lam), np.shape(freqs)[-1])))
+                fast = stability_kernels.modal_at(self.r0, self.r1, self.lam, freqs)
+                slow = stability_kernels.direct_columns(self.g, self.c, self.b0, self.b1, self.out, freqs)
+            else:
+                fast, slow = self.response(freqs), self.direct(freqs)
             return ~(np.abs(fast - slow) <= MODAL_TOLERANCE * np.abs(slow)).all(axis=1)
 
 
@@ -238,6 +245,15 @@ def _phase_reading(response, t0: np.ndarray, f_lo: float, f_hi: float):
     lowest = np.where(above.any(axis=1), np.degrees(lowest), np.nan)
     passes = dip | _passes_left_of_minus_one(response, phase, above, logf, phase_near)
     return (np.where(has_cross, f_c, 0.0), np.where(has_cross, margin, np.nan), lowest, passes)
+
+
+def _phase_reading_compiled(modal: _Modal, beta: float, tau, t0, f_lo: float, f_hi: float):
+    """_phase_reading of T = -beta x_out (times the network pole) in one compiled pass (stability_kernels)."""
+    grid = np.logspace(np.log10(f_lo), np.log10(f_hi), int(round(np.log10(f_hi / f_lo) * PER_DECADE)) + 1)
+    tau = np.zeros(len(t0)) if tau is None else np.ascontiguousarray(tau, float)
+    parts = (np.ascontiguousarray(a, complex) for a in (modal.r0, modal.r1, modal.lam))
+    return stability_kernels.phase_reading(*parts, float(beta), tau, np.ascontiguousarray(t0, float), grid,
+                                           np.log(grid))
 
 
 def _branch(phase):
@@ -509,8 +525,11 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
 
         # Probe the modal forms where they matter: at the dominant closed-loop pole's frequency.
         probe = np.where(pole_hz > 0, pole_hz, 1.0)[:, None] * np.array([0.5, 1.0, 2.0])
-        bad_closed = closed.checked(probe)
-        if step or settle is not None:
+        # Only the step response reads the closed loop's modal form away from its poles; the search's
+        # figures (poles, residue weights, DC gain) do not need the check.
+        wants_step = step or settle is not None
+        bad_closed = closed.checked(probe) if wants_step else np.zeros(designs, bool)
+        if wants_step:
             overshoot, settling, slope = _step(closed, finite, stable)
         else:
             overshoot, settling = np.full(designs, np.nan), np.full(designs, np.nan)
@@ -525,7 +544,10 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         t0 = -beta * opened.dc.real
         if inverting:
             gain_error = 1.0 / (1.0 + t0)
-        crossover, margin, lowest, passes = _phase_reading(loop, t0, f_lo, f_hi)
+        if kernels.enabled():
+            crossover, margin, lowest, passes = _phase_reading_compiled(opened, beta, tau, t0, f_lo, f_hi)
+        else:
+            crossover, margin, lowest, passes = _phase_reading(loop, t0, f_lo, f_hi)
         if bad_open.any():
             rows = np.flatnonzero(bad_open)
             sub = _Modal(g=opened.g[rows], c=opened.c[rows], b0=opened.b0[rows], b1=opened.b1[rows], out=out)
