@@ -76,9 +76,7 @@ def refine(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int = 1) -> 
         evaluations += spent
     if m > 1:
         levels = _levels(pool_F)
-        held_space = (pool_F[:, 1:] - pool_F[:, 1:].min(axis=0)) / scale[1:]
-        wanted = (levels[:, 1:] - pool_F[:, 1:].min(axis=0)) / scale[1:]
-        start = np.argmin(np.linalg.norm(held_space[None] - wanted[:, None], axis=2), axis=1)
+        start = _level_starts(pool_F, levels, scale)
         mask = np.zeros((len(levels), m), bool)
         mask[:, 0] = True
         runs = polish(problem, pool_X[start], mask, scale, steps, held=~mask, levels=levels, moving=moving)
@@ -153,12 +151,25 @@ def _length_rounds(problem, ends, asked, scale, steps, moving, rounds: int = LEN
     return np.vstack(found_X), np.vstack(found_F), spent
 
 
+def _level_starts(F: np.ndarray, levels: np.ndarray, scale: np.ndarray) -> np.ndarray:
+    """Per level, the best known answer to its problem (the least first objective among designs at least as
+    good as the level in every held objective); where no design is, the one nearest the level."""
+    meets = (F[None, :, 1:] <= levels[:, None, 1:] + 1e-12).all(axis=2)              # (levels, designs)
+    best = np.argmin(np.where(meets, F[None, :, 0], np.inf), axis=1)
+    distance = np.linalg.norm((F[None, :, 1:] - levels[:, None, 1:]) / scale[1:], axis=2)
+    return np.where(meets.any(axis=1), best, np.argmin(distance, axis=1))
+
+
 def _levels(F: np.ndarray) -> np.ndarray:
     """(LEVELS, m): the held objectives' levels (column 0, the one minimized, is NaN). F holds the ends."""
     m = F.shape[1]
-    if m == 2:
-        front = F[NonDominatedSorting().do(F, only_non_dominated_front=True)]
-        held = np.linspace(front[:, 1].min(), front[:, 1].max(), LEVELS)[:, None]
+    front = F[NonDominatedSorting().do(F, only_non_dominated_front=True)]
+    if m <= 3:
+        # A grid over the held objectives' range: levels where the genetic front is thin get runs too (a run
+        # whose level no design reaches returns nothing new).
+        per = int(round(LEVELS ** (1.0 / (m - 1))))
+        axes = [np.linspace(front[:, j].min(), front[:, j].max(), per) for j in range(1, m)]
+        held = np.stack(np.meshgrid(*axes, indexing="ij"), axis=-1).reshape(-1, m - 1)
     else:
         held = F[spread(F, LEVELS), 1:]
     return np.column_stack([np.full(len(held), np.nan), held])
