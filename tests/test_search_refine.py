@@ -108,3 +108,31 @@ def test_manifest_hypervolume_is_pymoo_hv_of_front_csv_on_the_spec_window(tmp_pa
     assert stored == pytest.approx(expected, rel=1e-5)
     assert manifest["convergence"]["refine_steps"] == 10
     assert stored > 0
+
+
+def test_polish_moves_a_gridded_variable_cell_by_cell():
+    """A variable the model snaps to a grid (as lengths are) has no slope; the polish moves it a cell at a
+    time as a 0/1 choice of its linear program. Staircase: f = (x0 - 0.3)^2 + (snap(x1) - 0.75)^2 with x1
+    snapped to quarters; from x1 = 0 the optimum is three cells away."""
+    from pymoo.core.problem import Problem
+
+    from ampfront.optimize.search.polish import polish
+
+    class Staircase(Problem):
+        def __init__(self):
+            super().__init__(n_var=2, n_obj=1, n_ieq_constr=1, xl=np.zeros(2), xu=np.ones(2))
+
+        def _evaluate(self, X, out, *args, **kwargs):
+            snapped = np.round(X[:, 1] * 4) / 4
+            out["F"] = ((X[:, 0] - 0.3) ** 2 + (snapped - 0.75) ** 2)[:, None]
+            out["G"] = (X[:, 0] - 0.9)[:, None]
+
+    problem = Staircase()
+    result = polish(problem, np.array([[0.8, 0.0]]), np.array([[True]]), np.array([1.0]), 60,
+                    moving=np.array([True, False]), cells=[(1, np.linspace(0, 1, 5))])
+    assert result.X[0, 1] == pytest.approx(0.75)
+    assert result.X[0, 0] == pytest.approx(0.3, abs=1e-3)
+    # Without the cells the gridded variable stays where it started.
+    held = polish(problem, np.array([[0.8, 0.0]]), np.array([[True]]), np.array([1.0]), 60,
+                  moving=np.array([True, False]))
+    assert held.X[0, 1] == 0.0

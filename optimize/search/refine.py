@@ -19,7 +19,6 @@ from ampfront.optimize.search.ends import de_end
 from ampfront.optimize.search.polish import polish
 
 LEVELS = 64            # epsilon-constraint runs over the front
-LENGTH_ROUNDS = 4      # rounds of one-length-at-a-time moves from each objective's end
 END_STARTS = 4         # each objective's end is sought from this many of the front's best designs at it
 
 
@@ -45,7 +44,7 @@ def spread(F: np.ndarray, count: int) -> np.ndarray:
 
 
 def moving_variables(problem) -> np.ndarray:
-    """Lengths stay where the genetic search put them: the model snaps them to a grid (5 nm, or SKY130's
+    """Lengths move by whole cells, not by slope: the model snaps them to a grid (5 nm, or SKY130's
     characterized lengths), a staircase no slope describes."""
     variables = getattr(problem, "design_variables", None)
     if variables is None:
@@ -57,6 +56,7 @@ def refine(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int = 1) -> 
     """X, F: the genetic search's feasible front (search space, minimized objectives)."""
     m = F.shape[1]
     moving = moving_variables(problem)
+    cells = length_cells(problem, moving)
     scale = np.maximum(np.ptp(F, axis=0), 1e-3)
     # An end is a single-objective problem with local optima of its own: differential evolution from the
     # front's best, and the front's best themselves, all polished.
@@ -67,19 +67,15 @@ def refine(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int = 1) -> 
         found.append(np.atleast_2d(x) if x is not None else np.empty((0, problem.n_var)))
     starts = [np.vstack([found[i], X[np.argsort(F[:, i], kind="stable")[:END_STARTS]]]) for i in range(m)]
     asked = np.repeat(np.eye(m, dtype=bool), [len(s) for s in starts], axis=0)
-    ends = polish(problem, np.vstack(starts), asked, scale, steps, moving=moving)
+    ends = polish(problem, np.vstack(starts), asked, scale, steps, moving=moving, cells=cells)
     pool_X, pool_F = np.vstack([X, ends.X]), np.vstack([F, ends.F])
     evaluations += ends.evaluations
-    if len(ends.X):
-        best_X, best_F, spent = _length_rounds(problem, ends, asked, scale, steps, moving)
-        pool_X, pool_F = np.vstack([pool_X, best_X]), np.vstack([pool_F, best_F])
-        evaluations += spent
     if m > 1:
         levels = _levels(pool_F)
         start = _level_starts(pool_F, levels, scale)
         mask = np.zeros((len(levels), m), bool)
         mask[:, 0] = True
-        runs = polish(problem, pool_X[start], mask, scale, steps, held=~mask, levels=levels, moving=moving)
+        runs = polish(problem, pool_X[start], mask, scale, steps, held=~mask, levels=levels, moving=moving, cells=cells)
         pool_X, pool_F = np.vstack([pool_X, runs.X]), np.vstack([pool_F, runs.F])
         evaluations += runs.evaluations
         if len(runs.started) > 1 and m == 2:
@@ -88,67 +84,34 @@ def refine(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int = 1) -> 
             # basin of its own, and the neighbour's solution is a short step away.
             got = runs.started
             again = polish(problem, runs.X[1:], mask[got[:-1]], scale, steps, held=~mask[got[:-1]],
-                           levels=levels[got[:-1]], moving=moving)
+                           levels=levels[got[:-1]], moving=moving, cells=cells)
             pool_X, pool_F = np.vstack([pool_X, again.X]), np.vstack([pool_F, again.F])
             evaluations += again.evaluations
     front = NonDominatedSorting().do(pool_F, only_non_dominated_front=True)
     return Refined(pool_X[front], pool_F[front], evaluations)
 
 
-def _length_steps(problem, moving: np.ndarray) -> np.ndarray:
-    """(n,): one length step per length variable in the searched space (0 for the others): the next
-    characterized length of a table technology, or a 25 % longer or shorter one on a 5 nm grid."""
+def length_cells(problem, moving: np.ndarray) -> list[tuple[int, np.ndarray]]:
+    """(column, cell centres in the unit box) of each length variable: the technology's characterized
+    lengths, or steps of 25 % (and the longest) on a 5 nm-grid technology."""
     tech = getattr(problem, "tech", None)
     variables = getattr(problem, "design_variables", None)
     if tech is None or variables is None:
-        return np.zeros(problem.n_var)
+        return []
     grid = getattr(tech, "length_grid", None)
-    ratio = np.log10(1.25) if grid is None or len(grid) < 2 else float(np.max(np.diff(np.log10(grid))))
-    return np.array([0.0 if move or not v.log else ratio for move, v in zip(moving, variables)])
-
-
-def _length_rounds(problem, ends, asked, scale, steps, moving, rounds: int = LENGTH_ROUNDS):
-    """Each objective's best end, with one length at a time a step longer or shorter, polished again; the
-    best kept, round after round while one improves. Lengths are a grid the slopes cannot see, and they
-    decide much (gain, and through it the currents everything else needs)."""
-    m = asked.shape[1]
-    step = _length_steps(problem, moving)
-    lengths = np.flatnonzero(step)
-    if not len(lengths):
-        return np.empty((0, problem.n_var)), np.empty((0, m)), 0
-    span = problem.xu - problem.xl
-    which = asked[ends.started].argmax(axis=1)
-    best = {i: int(np.flatnonzero(which == i)[np.argmin(ends.F[which == i, i])]) for i in range(m) if (which == i).any()}
-    best_X = {i: ends.X[k] for i, k in best.items()}
-    best_F = {i: ends.F[k] for i, k in best.items()}
-    spent, found_X, found_F = 0, [], []
-    for _ in range(rounds):
-        starts, objective = [], []
-        for i, x in best_X.items():
-            for j in lengths:
-                for sign in (-1.0, 1.0):
-                    y = x.copy()
-                    y[j] = np.clip(y[j] + sign * step[j], problem.xl[j], problem.xu[j])
-                    if y[j] != x[j]:
-                        starts.append(y), objective.append(i)
-        if not starts:
-            break
-        objective = np.array(objective)
-        runs = polish(problem, np.array(starts), np.eye(m, dtype=bool)[objective], scale, steps, moving=moving)
-        spent += runs.evaluations
-        found_X.append(runs.X), found_F.append(runs.F)
-        improved = False
-        for i in list(best_X):
-            mine = objective[runs.started] == i
-            if mine.any():
-                k = np.flatnonzero(mine)[np.argmin(runs.F[mine, i])]
-                if runs.F[k, i] < best_F[i][i] - 1e-9:
-                    best_X[i], best_F[i], improved = runs.X[k], runs.F[k], True
-        if not improved:
-            break
-    if not found_X:
-        return np.empty((0, problem.n_var)), np.empty((0, m)), spent
-    return np.vstack(found_X), np.vstack(found_F), spent
+    cells = []
+    for j, (move, v) in enumerate(zip(moving, variables)):
+        if move or not v.log:
+            continue
+        low, high = problem.xl[j], problem.xu[j]
+        if grid is not None and len(grid) > 1:
+            logs = np.log10(np.asarray(grid, float))
+            logs = logs[(logs >= low - 1e-12) & (logs <= high + 1e-12)]
+        else:
+            logs = np.unique(np.append(np.arange(low, high, np.log10(1.25)), high))
+        if len(logs) > 1:
+            cells.append((j, (logs - low) / (high - low)))
+    return cells
 
 
 def _level_starts(F: np.ndarray, levels: np.ndarray, scale: np.ndarray) -> np.ndarray:
