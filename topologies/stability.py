@@ -60,6 +60,8 @@ inp at the common mode (inverting: the same poles, other zeros, an inverted outp
 
 from __future__ import annotations
 
+import copy
+
 import numpy as np
 
 from .base import Build, Conditions
@@ -393,19 +395,41 @@ def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int, b
 
 
 def large_step_settling(closed: _Modal, finite: np.ndarray, stable: np.ndarray, slope: np.ndarray, slew,
-                        step_v: float, band: float) -> np.ndarray:
+                        step_v: float, band: float, reach=None) -> np.ndarray:
     """Settling time (s) of an output step `step_v` (V) to `band` (fraction of the step) at slew rate `slew`
     (V/s, one per design), slewing then linear (module doc), and the step's largest slope (V/s: the slew
-    rate where it slews, else step_v s_max; NaN for a small step); `slope` is the unit step's s_max."""
-    with np.errstate(divide="ignore", invalid="ignore"):
-        v_lin = np.asarray(slew, float) / slope
+    rate where it slews, else step_v s_max; NaN for a small step); `slope` is the unit step's s_max.
+    `reach` (bool per design): both ends of the step lie within the output's linear swing; where not,
+    the output never settles at the stated level (inf)."""
+    slew = np.asarray(slew, float)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        v_lin = slew / slope
         slewing = step_v > v_lin
         t_slew = np.where(slewing, (step_v - v_lin) / slew, 0.0)
-        linear_band = band * np.where(slewing, step_v / v_lin, 1.0)
-    linear_band = np.where(np.isfinite(linear_band) & (linear_band > 0), linear_band, band)
-    _, t_linear, _ = _step(closed, finite, stable, linear_band)
+        share = np.where(slewing, v_lin / step_v, 1.0)
+        share = np.where(np.isfinite(share) & (share > 0), share, 1.0)
+        t_slew = np.where(np.isfinite(t_slew), t_slew, 0.0)
+        # What each mode carries into the linear phase, as a fraction of the whole step. The loop's own
+        # modes see only the remainder V_lin the slewing leaves (share). A mode much slower than the slew
+        # (a pole-zero doublet: a bias or tail node, a mirror) is driven by the whole movement of whatever
+        # node drives it, and the slew is a ramp to it: the ramp of length t_slew leaves it
+        # (1 - exp(-t_slew / lam)) / (t_slew / lam) of a step's excitation, which tends to 1. The larger of
+        # the two is kept (they meet at the onset of slewing, so a small step is unchanged). ngspice shows
+        # it: a 1 V slewing step's slow tail is the same fraction of the step as a 10 mV step's.
+        lam = np.where(finite, closed.lam, 1.0)
+        x = t_slew[:, None] / lam
+        tiny = np.abs(x) < 1e-9
+        ramp = np.where(tiny, 1.0, -np.expm1(-np.where(tiny, 1.0, x)) / np.where(tiny, 1.0, x))
+        weight = np.where(np.abs(ramp) > share[:, None], ramp, share[:, None])
+    # The linear phase as a modal form whose final value is the step's and whose modes carry those
+    # weights (_step reads c = r1 / lam - r0).
+    weighted = copy.copy(closed)
+    weighted.r1 = np.where(finite, lam * (weight * (closed.r1 / lam - closed.r0) + closed.r0), closed.r1)
+    _, t_linear, _ = _step(weighted, finite, stable, band)
     settle = np.where(np.isfinite(v_lin) | (step_v == 0), t_slew + t_linear, np.nan)
-    steepest = np.fmin(np.asarray(slew, float), step_v * slope) if step_v > 0 else np.full(len(settle), np.nan)
+    if reach is not None:
+        settle = np.where(np.asarray(reach, bool) | np.isnan(settle), settle, np.inf)
+    steepest = np.fmin(slew, step_v * slope) if step_v > 0 else np.full(len(settle), np.nan)
     return settle, steepest
 
 
@@ -515,8 +539,8 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         else:
             overshoot, settling = np.full(designs, np.nan), np.full(designs, np.nan)
         if settle is not None:
-            slew, step_v, band = settle
-            large, steepest = large_step_settling(closed, finite, stable, slope, slew, step_v, band)
+            slew, step_v, band, *reach = settle
+            large, steepest = large_step_settling(closed, finite, stable, slope, slew, step_v, band, *reach)
             large[bad_closed] = np.nan
         gain_error = 1.0 - beta * closed.dc.real if not inverting else None
 
