@@ -14,7 +14,7 @@ from .kcl import node_imbalance
 from .noise import noise_metrics
 from .smallsignal import Circuit, loop_metrics
 from .application import network_noise_resistance
-from .stability import stability_from_circuits
+from .stability import input_coupling, stability_from_circuits
 
 
 # What the AC source moves in each measurement: the differential (open-loop) gain drives inp with inn held
@@ -111,7 +111,9 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         # with the loop's gain, so that step does not settle there.
         reach = (cond.v_cm - 0.5 * cond.step_v >= out_low) & (cond.v_cm + 0.5 * cond.step_v <= out_high)
         settle = (reported.get("slew_v_per_s"), cond.step_v, cond.settle_band, reach) if settles else None
-        stability = _stability(circuit, common, loop, cond.beta, step, settle, r_noise, cond.inverting)
+        # The network's pole at inn sees the input devices' gate row, each capacitance to the node it goes to.
+        coupling = input_coupling(build, circuit.nodes) if r_noise > 0 else None
+        stability = _stability(circuit, common, loop, cond.beta, step, settle, r_noise, cond.inverting, coupling)
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     designs = len(build.supply_current)
@@ -163,7 +165,8 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
 
 
 def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool,
-               settle=None, r_source: float = 0.0, inverting: bool = False) -> dict[str, np.ndarray]:
+               settle=None, r_source: float = 0.0, inverting: bool = False,
+               coupling=None) -> dict[str, np.ndarray]:
     """Stability figures for the designs whose open loop is a working amplifier (finite gain, crossover and
     margin, no right-half-plane pole); the rest fail those constraints already and read NaN here. Each
     design's figures depend on its own circuit only, so the split changes no result."""
@@ -172,12 +175,13 @@ def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool,
     if loop.modal is None or len(rows) == len(loop.gain):
         eigen = (loop.modal.lam, loop.modal.vectors) if loop.modal is not None else None
         return stability_from_circuits(circuit, common, beta, step=step, eigen=eigen, settle=settle,
-                                       r_source=r_source, inverting=inverting)
+                                       r_source=r_source, inverting=inverting, coupling=coupling)
     if settle is not None:
         settle = (np.asarray(settle[0], float)[rows], *settle[1:3], np.asarray(settle[3])[rows])
     part = stability_from_circuits(circuit.subset(rows), common.subset(rows), beta, step=step,
                                    eigen=(loop.modal.lam[rows], loop.modal.vectors[rows]), settle=settle,
-                                   r_source=r_source, inverting=inverting)
+                                   r_source=r_source, inverting=inverting,
+                                   coupling=None if coupling is None else tuple(v[rows] for v in coupling))
     full = {}
     for name, values in part.items():
         full[name] = np.full(len(loop.gain), np.nan)
