@@ -17,8 +17,9 @@ from memory of any analog design text:
 
     output load          non-inverting, inn follows beta v(out): Rf + Rg to the reference; inverting, inn is
                          the virtual ground: Rf alone (Conditions.r_output_load)
-    input pole           the feedback reaches inn through Rf || Rg and the input capacitance
-                         (stability.closed_loop_matrices)
+    input pole           the feedback reaches inn through Rf || Rg into the input devices' gate row, each
+                         capacitance to the node it goes to (the pair's Cgs to a tail that follows the
+                         input, Cgd to a drain that moves against it; stability.input_coupling)
 
 The gain error the model reports is not this formula but the closed loop's own DC solution
 (stability.py), which also carries the input pair's common-mode feedthrough; the formula is what a study's

@@ -15,7 +15,7 @@ from .kcl import node_imbalance
 from .noise import noise_metrics
 from .smallsignal import Circuit, loop_metrics
 from .application import network_noise_resistance
-from .stability import stability_from_circuits
+from .stability import input_coupling, stability_from_circuits
 
 
 # What the AC source moves in each measurement: the differential (open-loop) gain drives inp with inn held
@@ -118,20 +118,26 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         supply = small_signal(build, cond, "supply", circuit.block_singular)
         a_cm, a_dd = common.dc_gain("out"), supply.dc_gain("out")
         unsolved = circuit.quarantined | unloaded.quarantined | common.quarantined | supply.quarantined
-        settle = (build.metrics.get("slew_v_per_s"), cond.step_v, cond.settle_band) if settles else None
-        stability = _stability(circuit, common, loop, cond.beta, step, settle, r_noise, cond.inverting)
+        reported = _reported(topology, build)
+        peak_source, peak_sink = reported["peak_source_a"], reported["peak_sink_a"]
+        out_high, out_low = reported.pop("out_high_v"), reported.pop("out_low_v")
+        if np.isfinite(cond.r_load):
+            # The load line: the output cannot go further from the common mode than the peak current through
+            # the load resistor allows, and less far than all of it: the device that provides the gain is
+            # left with the rest, and the gain collapses before it is starved.
+            out_high = np.fmin(out_high, cond.v_cm + LOAD_LINE_SHARE * peak_source * cond.r_load)
+            out_low = np.fmax(out_low, cond.v_cm - LOAD_LINE_SHARE * peak_sink * cond.r_load)
+        # The stated step swings the output by half of it either side of the common mode; an end beyond the
+        # linear swing (typically the network's load current outgrowing the output's sink) is never reached
+        # with the loop's gain, so that step does not settle there.
+        reach = (cond.v_cm - 0.5 * cond.step_v >= out_low) & (cond.v_cm + 0.5 * cond.step_v <= out_high)
+        settle = (reported.get("slew_v_per_s"), cond.step_v, cond.settle_band, reach) if settles else None
+        # The network's pole at inn sees the input devices' gate row, each capacitance to the node it goes to.
+        coupling = input_coupling(build, circuit.nodes) if r_noise > 0 else None
+        stability = _stability(circuit, common, loop, cond.beta, step, settle, r_noise, cond.inverting, coupling)
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     designs = len(build.supply_current)
-    reported = _reported(topology, build)
-    peak_source, peak_sink = reported["peak_source_a"], reported["peak_sink_a"]
-    out_high, out_low = reported.pop("out_high_v"), reported.pop("out_low_v")
-    if np.isfinite(cond.r_load):
-        # The load line: the output cannot go further from the common mode than the peak current through
-        # the load resistor allows, and less far than all of it: the device that provides the gain is left
-        # with the rest, and the gain collapses before it is starved.
-        out_high = np.fmin(out_high, cond.v_cm + LOAD_LINE_SHARE * peak_source * cond.r_load)
-        out_low = np.fmax(out_low, cond.v_cm - LOAD_LINE_SHARE * peak_sink * cond.r_load)
     layout = tech.layout
     device_area = sum(layout.device_area(d.w, d.l) for d in build.devices)
     cap_area = sum(e.value for e in build.elements if e.kind == "C") / tech.cap_density
@@ -180,7 +186,8 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
 
 
 def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool,
-               settle=None, r_source: float = 0.0, inverting: bool = False) -> dict[str, np.ndarray]:
+               settle=None, r_source: float = 0.0, inverting: bool = False,
+               coupling=None) -> dict[str, np.ndarray]:
     """Stability figures for the designs whose open loop is a working amplifier (finite gain, crossover and
     margin, no right-half-plane pole); the rest fail those constraints already and read NaN here. Each
     design's figures depend on its own circuit only, so the split changes no result."""
@@ -189,12 +196,13 @@ def _stability(circuit: Circuit, common: Circuit, loop, beta: float, step: bool,
     if loop.modal is None or len(rows) == len(loop.gain):
         eigen = (loop.modal.lam, loop.modal.vectors) if loop.modal is not None else None
         return stability_from_circuits(circuit, common, beta, step=step, eigen=eigen, settle=settle,
-                                       r_source=r_source, inverting=inverting)
+                                       r_source=r_source, inverting=inverting, coupling=coupling)
     if settle is not None:
-        settle = (np.asarray(settle[0], float)[rows], *settle[1:])
+        settle = (np.asarray(settle[0], float)[rows], *settle[1:3], np.asarray(settle[3])[rows])
     part = stability_from_circuits(circuit.subset(rows), common.subset(rows), beta, step=step,
                                    eigen=(loop.modal.lam[rows], loop.modal.vectors[rows]), settle=settle,
-                                   r_source=r_source, inverting=inverting)
+                                   r_source=r_source, inverting=inverting,
+                                   coupling=None if coupling is None else tuple(v[rows] for v in coupling))
     full = {}
     for name, values in part.items():
         full[name] = np.full(len(loop.gain), np.nan)

@@ -129,8 +129,11 @@ class FoldedCascode:
         offset = np.sqrt(pair_mismatch(tech, "n", w_in, l_in) ** 2
                          + (gm_src / gm_in * pair_mismatch(tech, "p", w_src, l_src)) ** 2
                          + (gm_mb / gm_in * pair_mismatch(tech, "n", w_mb, l_mb)) ** 2)
+        # Slewing moves the output node with its own drain junctions and the cascodes' gate-drain overlaps
+        # (their gates sit at bias levels), not C_L alone.
+        c_out = cond.c_load + sum(op[r].op.cdb + op[r].op.cgd for r in ("cascode_p_b", "cascode_n_b"))
         metrics = {
-            "slew_v_per_s": np.minimum(i5, i_src) / cond.c_load,
+            "slew_v_per_s": np.minimum(i5, i_src) / c_out,
             # Fully steered, the output branch gets at most the smaller of tail and folding current.
             "peak_source_a": np.minimum(i5, i_src),
             "peak_sink_a": np.minimum(i5, i_src),

@@ -52,13 +52,19 @@ Large-step settling (`settle`): the two-phase method, slewing then linear settli
 analog design text). The linear loop asks for an output slope of at most V_step * s_max, s_max the largest
 slope of its unit step response (from the poles and residues); beyond the slew rate SR the output slews.
 The largest step the loop follows linearly is V_lin = SR / s_max (SR tau for one pole). A larger step slews
-for (V_step - V_lin) / SR, then settles linearly from the remaining V_lin: the small-signal response must
-reach band * V_step, a band of band * V_step / V_lin in its own terms. t = t_slew + t_linear. The step is
+for (V_step - V_lin) / SR, then settles linearly from the remaining V_lin: the loop's own modes carry
+V_lin / V_step of the step's excitation into the linear phase, while a mode much slower than the slew (a
+pole-zero doublet) carries what a ramp of length t_slew leaves it, nearly the whole step's (ngspice: a
+slewing step's slow tail is the same fraction of the step as a small step's); each mode keeps the larger of
+the two, and the sum must reach band * V_step. t = t_slew + t_linear. A step whose ends (v_cm +- V_step / 2)
+lie outside the output's linear swing (the evaluator's, load line included) never settles (inf). The step is
 taken where the configuration's signal enters: at inp (non-inverting), or through the network at inn with
 inp at the common mode (inverting: the same poles, other zeros, an inverted output).
 """
 
 from __future__ import annotations
+
+import copy
 
 import numpy as np
 
@@ -112,10 +118,18 @@ class _Modal:
             self.lam, vectors = eigen
             sol = np.linalg.solve(g, np.concatenate([-b0[:, :, None], -b1[:, :, None]], axis=2))
         coef = np.linalg.solve(vectors, sol.astype(complex))
+        self.vectors, self.coef = vectors, coef
         row = vectors[:, out, :]
         self.r0, self.r1 = row * coef[:, :, 0], row * coef[:, :, 1]
         self.dc = sol[:, out, 0]
         self.g, self.c, self.b0, self.b1, self.out = g, c, b0, b1, out
+
+    def weighted(self, weights) -> "_Modal":
+        """The same modal form read at sum_j weights_j x_j (weights (designs, n)) instead of at `out`."""
+        other = copy.copy(self)
+        row = np.einsum("dj,dji->di", weights, self.vectors)
+        other.r0, other.r1 = row * self.coef[:, :, 0], row * self.coef[:, :, 1]
+        return other
 
     def response(self, freqs) -> np.ndarray:
         freqs = np.asarray(freqs, float)
@@ -155,12 +169,24 @@ def _finite_poles(lam: np.ndarray) -> np.ndarray:
     return np.abs(lam) > INFINITE_POLE * scale
 
 
-def _loop_gain(differential: Circuit, g_n, c_n, beta: float, eigen=None, tau=None):
+def _loop_gain(differential: Circuit, g_n, c_n, beta: float, eigen=None, tau=None, coupling=None):
     """Return ratio T(jw) of the loop broken at inn, as a function of frequency (designs, F) -> complex;
-    `tau` (s, per design): the feedback network's pole with the input capacitance (network_pole)."""
+    `tau` (s, per design): the feedback network's pole with the input capacitance (network_pole).
+    `coupling` (r_source, c_total, c_row; input_coupling): the network's resistance into the amplifier's
+    input admittance s (c_total - sum_j c_row_j x_j / v(inn)), every node's own response to v(inn) read
+    from the same modal form (the pair's Cgs to a tail that follows the input, its Cgd to a drain that
+    moves against it), in place of the lumped tau."""
     n = len(differential.nodes)
     out = differential.nodes.index("out")
     modal = _Modal(differential.G[:, :n, :n], differential.C[:, :n, :n], g_n, c_n, out, eigen)
+    if coupling is not None:
+        r_source, c_total, c_row = coupling
+        inner = modal.weighted(c_row)
+
+        def loop(f):
+            s = 2j * np.pi * np.asarray(f, float)
+            return -beta * modal.response(f) / (1.0 + s * r_source * (c_total[:, None] - inner.response(f)))
+        return modal, loop
     if tau is None:
         return modal, lambda f: -beta * modal.response(f)
     return modal, lambda f: -beta * modal.response(f) * network_pole(f, tau)
@@ -172,10 +198,30 @@ def network_pole(f, tau):
 
 
 def input_capacitance(g_n, c_n) -> np.ndarray:
-    """Capacitance from inn to the amplifier's internal nodes (F, per design): minus the sum of the inn
-    column's C part. The Miller multiplication of an input device's Cgd and its Cgb to the supply are left
-    out (topologies/application.py, known limits)."""
+    """Capacitance from inn to the amplifier's internal nodes (F, per design), lumped to ground: minus the
+    sum of the inn column's C part (the stand-in where no device's gate is at inn, see input_coupling)."""
     return np.maximum(-c_n.sum(axis=1), 0.0)
+
+
+def input_coupling(build: Build, nodes) -> tuple[np.ndarray, np.ndarray] | None:
+    """(c_total, c_row): the gate row of every device whose gate is at inn, the current into inn being
+    s (c_total v(inn) - sum_j c_row_j x_j) over the circuit's `nodes` (F; the supplies and the bulk at AC
+    ground count in c_total only). The gate row is exact for both device models: the tables' cgs, cgd,
+    cgb are the gate charge's own derivatives (process/tables.py), the square law's are Meyer's. None when
+    no gate sits at inn."""
+    index = {name: k for k, name in enumerate(nodes)}
+    gated = [d for d in build.devices if d.nodes[1] == "inn"]
+    if not gated:
+        return None
+    designs = len(np.atleast_1d(gated[0].w))
+    c_total, c_row = np.zeros(designs), np.zeros((designs, len(nodes)))
+    for d in gated:
+        for terminal, cap in ((d.nodes[2], d.op.cgs), (d.nodes[0], d.op.cgd), (d.nodes[3], d.op.cgb)):
+            cap = np.broadcast_to(np.asarray(cap, float), (designs,))
+            c_total = c_total + cap
+            if terminal in index:
+                c_row[:, index[terminal]] += cap
+    return c_total, c_row
 
 
 def _phase_reading(response, t0: np.ndarray, f_lo: float, f_hi: float):
@@ -409,30 +455,55 @@ def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int, b
 
 
 def large_step_settling(closed: _Modal, finite: np.ndarray, stable: np.ndarray, slope: np.ndarray, slew,
-                        step_v: float, band: float) -> np.ndarray:
+                        step_v: float, band: float, reach=None) -> np.ndarray:
     """Settling time (s) of an output step `step_v` (V) to `band` (fraction of the step) at slew rate `slew`
     (V/s, one per design), slewing then linear (module doc), and the step's largest slope (V/s: the slew
-    rate where it slews, else step_v s_max; NaN for a small step); `slope` is the unit step's s_max."""
-    with np.errstate(divide="ignore", invalid="ignore"):
-        v_lin = np.asarray(slew, float) / slope
+    rate where it slews, else step_v s_max; NaN for a small step); `slope` is the unit step's s_max.
+    `reach` (bool per design): both ends of the step lie within the output's linear swing; where not,
+    the output never settles at the stated level (inf)."""
+    slew = np.asarray(slew, float)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        v_lin = slew / slope
         slewing = step_v > v_lin
         t_slew = np.where(slewing, (step_v - v_lin) / slew, 0.0)
-        linear_band = band * np.where(slewing, step_v / v_lin, 1.0)
-    linear_band = np.where(np.isfinite(linear_band) & (linear_band > 0), linear_band, band)
-    _, t_linear, _ = _step(closed, finite, stable, linear_band)
+        share = np.where(slewing, v_lin / step_v, 1.0)
+        share = np.where(np.isfinite(share) & (share > 0), share, 1.0)
+        t_slew = np.where(np.isfinite(t_slew), t_slew, 0.0)
+        # What each mode carries into the linear phase, as a fraction of the whole step. The loop's own
+        # modes see only the remainder V_lin the slewing leaves (share). A mode much slower than the slew
+        # (a pole-zero doublet: a bias or tail node, a mirror) is driven by the whole movement of whatever
+        # node drives it, and the slew is a ramp to it: the ramp of length t_slew leaves it
+        # (1 - exp(-t_slew / lam)) / (t_slew / lam) of a step's excitation, which tends to 1. The larger of
+        # the two is kept (they meet at the onset of slewing, so a small step is unchanged). ngspice shows
+        # it: a 1 V slewing step's slow tail is the same fraction of the step as a 10 mV step's.
+        lam = np.where(finite, closed.lam, 1.0)
+        x = t_slew[:, None] / lam
+        tiny = np.abs(x) < 1e-9
+        ramp = np.where(tiny, 1.0, -np.expm1(-np.where(tiny, 1.0, x)) / np.where(tiny, 1.0, x))
+        weight = np.where(np.abs(ramp) > share[:, None], ramp, share[:, None])
+    # The linear phase as a modal form whose final value is the step's and whose modes carry those
+    # weights (_step reads c = r1 / lam - r0).
+    weighted = copy.copy(closed)
+    weighted.r1 = np.where(finite, lam * (weight * (closed.r1 / lam - closed.r0) + closed.r0), closed.r1)
+    _, t_linear, _ = _step(weighted, finite, stable, band)
     settle = np.where(np.isfinite(v_lin) | (step_v == 0), t_slew + t_linear, np.nan)
-    steepest = np.fmin(np.asarray(slew, float), step_v * slope) if step_v > 0 else np.full(len(settle), np.nan)
+    if reach is not None:
+        settle = np.where(np.asarray(reach, bool) | np.isnan(settle), settle, np.inf)
+    steepest = np.fmin(slew, step_v * slope) if step_v > 0 else np.full(len(settle), np.nan)
     return settle, steepest
 
 
-def closed_loop_matrices(differential: Circuit, common_mode: Circuit, beta: float = 1.0, r_source: float = 0.0):
+def closed_loop_matrices(differential: Circuit, common_mode: Circuit, beta: float = 1.0, r_source: float = 0.0,
+                         coupling=None):
     """(G', C', g_p, c_p, out): the closed loop's nodal matrices (designs, n, n), the inp column it is
     driven through, and the index of the output node.
 
     `r_source` (Ohm): the feedback network's Thevenin resistance at inn (Rf || Rg). The feedback then
     reaches inn through the pole of that resistance with the input capacitance, v(inn) (1 + s tau) =
     beta v(out), tau = r_source C_in: one more unknown v(inn) with that row, and the inn column where the
-    amplifier sees it ((n + 1) x (n + 1) matrices; tau = 0 leaves an infinite pole)."""
+    amplifier sees it ((n + 1) x (n + 1) matrices; tau = 0 leaves an infinite pole). `coupling` (c_total,
+    c_row; input_coupling): the current into inn is s (c_total v(inn) - c_row . x), so the row reads
+    v(inn) (1 + s R c_total) - s R c_row . x = beta v(out) (without it, C_in lumped to ground)."""
     if not 0.0 < beta <= 1.0:
         raise ValueError(f"feedback factor beta must lie in (0, 1], got {beta}")
     n = len(differential.nodes)
@@ -445,7 +516,10 @@ def closed_loop_matrices(differential: Circuit, common_mode: Circuit, beta: floa
         g[:, :n, :n], c[:, :n, :n] = differential.G[:, :n, :n], differential.C[:, :n, :n]
         g[:, :n, n], c[:, :n, n] = g_n, c_n
         g[:, n, n], g[:, n, out] = 1.0, -beta
-        c[:, n, n] = r_source * input_capacitance(g_n, c_n)
+        if coupling is None:
+            c[:, n, n] = r_source * input_capacitance(g_n, c_n)
+        else:
+            c[:, n, n], c[:, n, :n] = r_source * coupling[0], -r_source * coupling[1]
         pad = np.zeros((designs, 1))
         return g, c, np.concatenate([g_p, pad], axis=1), np.concatenate([c_p, pad], axis=1), out
     g, c = differential.G[:, :n, :n].copy(), differential.C[:, :n, :n].copy()
@@ -485,7 +559,7 @@ def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float =
 def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: float = 1.0,
                             f_lo: float = 1e-3, f_hi: float = 1e11, step: bool = True,
                             eigen=None, settle=None, r_source: float = 0.0,
-                            inverting: bool = False) -> dict[str, np.ndarray]:
+                            inverting: bool = False, coupling=None) -> dict[str, np.ndarray]:
     """The stability metrics from the evaluator's differential and common-mode circuits (see module doc).
 
     `step=False` skips the small-step response (overshoot and settling read NaN): the search judges
@@ -493,12 +567,17 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
     (slew rates V/s per design, output step V, band) adds step_settling_s (and implies the step response).
     `r_source`: the feedback network's Thevenin resistance at inn (closed_loop_matrices). `inverting`: the
     signal reaches the loop through the network at inn, so the static gain error is 1 / (1 + T(0)) of the
-    inn path rather than the inp path's closed-loop gain."""
+    inn path rather than the inp path's closed-loop gain. `coupling`: the gate row at inn (input_coupling),
+    for the network's pole with the amplifier's input admittance; without it C_in is lumped to ground."""
     designs = differential.designs
     differential, common_mode, broken = _sanitized(differential, common_mode)
-    g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta, r_source)
+    if r_source <= 0:
+        coupling = None
+    g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta, r_source, coupling)
     g_n, c_n = inverting_column(differential, common_mode)
-    tau = r_source * input_capacitance(g_n, c_n) if r_source > 0 else None
+    tau = None
+    if r_source > 0:
+        tau = r_source * (input_capacitance(g_n, c_n) if coupling is None else coupling[0])
     if inverting:
         # The signal enters through the network at inn, the amplifier's inp held at the common mode:
         # v(inn) = beta v(out) + (1 - beta) v(sig), so the drive is (1 - beta) times the inn column, or,
@@ -534,12 +613,13 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         else:
             overshoot, settling = np.full(designs, np.nan), np.full(designs, np.nan)
         if settle is not None:
-            slew, step_v, band = settle
-            large, steepest = large_step_settling(closed, finite, stable, slope, slew, step_v, band)
+            slew, step_v, band, *reach = settle
+            large, steepest = large_step_settling(closed, finite, stable, slope, slew, step_v, band, *reach)
             large[bad_closed] = np.nan
         gain_error = 1.0 - beta * closed.dc.real if not inverting else None
 
-        opened, loop = _loop_gain(differential, g_n, c_n, beta, eigen, tau)
+        opened, loop = _loop_gain(differential, g_n, c_n, beta, eigen, tau,
+                                  None if coupling is None else (r_source, *coupling))
         bad_open = opened.checked(probe)
         t0 = -beta * opened.dc.real
         if inverting:

@@ -101,8 +101,11 @@ class TelescopicCascode:
         ]
         op = {d.role: d for d in devices}
         gm_in, gm_top = op["input_pair_a"].op.gm, op["mirror_top_a"].op.gm
+        # Slewing moves the output node with its own drain junctions and the cascodes' gate-drain overlaps
+        # (their gates sit at bias levels), not C_L alone.
+        c_out = cond.c_load + sum(op[r].op.cdb + op[r].op.cgd for r in ("cascode_p_b", "cascode_n_b"))
         metrics = {
-            "slew_v_per_s": i5 / cond.c_load,
+            "slew_v_per_s": i5 / c_out,
             "peak_source_a": i5,
             "peak_sink_a": i5,
             "out_high_v": pb - op["cascode_p_b"].op.vdsat - tech.saturation_guard,
