@@ -53,8 +53,10 @@ def test_metrics_match_the_reference(name, tech_name):
 @pytest.mark.parametrize("inverting", [False, True])
 @pytest.mark.parametrize("name", ["two_stage_miller", "folded_cascode_ab"])
 def test_applied_loop_matches_the_reference(name, inverting):
-    """A feedback network at beta 0.1: its pole with the input capacitance joins the return ratio the
-    compiled reading evaluates, and the inverting drive changes the closed loop's input column."""
+    """A feedback network at beta 0.1 and the inverting drive (which changes the closed loop's input
+    column): every compiled kernel the applied loop runs against the numpy path. The return ratio with the
+    network's coupling into the input devices' gate row is read on the numpy path in both (the compiled
+    reading knows a lumped pole only), so here it checks the kernels around it."""
     from dataclasses import replace
 
     tech = load(shipped()["generic180"])

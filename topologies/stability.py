@@ -624,7 +624,9 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         t0 = -beta * opened.dc.real
         if inverting:
             gain_error = 1.0 / (1.0 + t0)
-        if kernels.enabled():
+        # The compiled reading knows the lumped network pole only; the input devices' gate-row coupling
+        # (every network with a gate at inn) is read on the numpy path.
+        if kernels.enabled() and coupling is None:
             crossover, margin, lowest, passes = _phase_reading_compiled(opened, beta, tau, t0, f_lo, f_hi)
         else:
             crossover, margin, lowest, passes = _phase_reading(loop, t0, f_lo, f_hi)
