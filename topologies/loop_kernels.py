@@ -246,6 +246,33 @@ def crossings(gain, r0, r1, lam, grid, logf, refine, f_probe_default, walk_point
 crossings = compiled(crossings)
 
 
+def _lu_solve(a, x, n):
+    """Solves a y = x in place (x holds y on return; a is overwritten) by LU with partial pivoting, pivoting by
+    |re| + |im| as LAPACK's izamax does, so the compiled solves pivot as numpy's do."""
+    for k in range(n):
+        pivot, size = k, abs(a[k, k].real) + abs(a[k, k].imag)
+        for i in range(k + 1, n):
+            if abs(a[i, k].real) + abs(a[i, k].imag) > size:
+                pivot, size = i, abs(a[i, k].real) + abs(a[i, k].imag)
+        if pivot != k:
+            for j in range(n):
+                a[k, j], a[pivot, j] = a[pivot, j], a[k, j]
+            x[k], x[pivot] = x[pivot], x[k]
+        for i in range(k + 1, n):
+            factor = a[i, k] / a[k, k]
+            for j in range(k + 1, n):
+                a[i, j] -= factor * a[k, j]
+            x[i] -= factor * x[k]
+    for i in range(n - 1, -1, -1):
+        total = x[i]
+        for j in range(i + 1, n):
+            total -= a[i, j] * x[j]
+        x[i] = total / a[i, i]
+
+
+_lu_solve = compiled(_lu_solve)
+
+
 def direct(g, c, output, f):
     """v(output)/v(drive) of every design at its own frequency f by LU with partial pivoting of G + sC
     (smallsignal.Circuit.response at one frequency a design, without its (designs, 1, n, n) temporaries).
@@ -260,26 +287,7 @@ def direct(g, c, output, f):
             for j in range(n):
                 a[i, j] = complex(g[d, i, j], w * c[d, i, j])
             x[i] = complex(-g[d, i, n], -w * c[d, i, n])
-        for k in range(n):
-            # Pivot by |re| + |im|, as LAPACK's izamax does.
-            pivot, size = k, abs(a[k, k].real) + abs(a[k, k].imag)
-            for i in range(k + 1, n):
-                if abs(a[i, k].real) + abs(a[i, k].imag) > size:
-                    pivot, size = i, abs(a[i, k].real) + abs(a[i, k].imag)
-            if pivot != k:
-                for j in range(n):
-                    a[k, j], a[pivot, j] = a[pivot, j], a[k, j]
-                x[k], x[pivot] = x[pivot], x[k]
-            for i in range(k + 1, n):
-                factor = a[i, k] / a[k, k]
-                for j in range(k + 1, n):
-                    a[i, j] -= factor * a[k, j]
-                x[i] -= factor * x[k]
-        for i in range(n - 1, -1, -1):
-            total = x[i]
-            for j in range(i + 1, n):
-                total -= a[i, j] * x[j]
-            x[i] = total / a[i, i]
+        _lu_solve(a, x, n)
         out[d] = x[output]
     return out
 

@@ -15,7 +15,7 @@ import math
 import numpy as np
 
 from .kernels import compiled
-from .loop_kernels import _modal, _modal_grid
+from .loop_kernels import _clip01, _lu_solve, _modal, _modal_grid
 
 TWO_PI = 2.0 * np.pi
 GOLDEN = (math.sqrt(5.0) - 1.0) / 2.0
@@ -71,13 +71,6 @@ def _fmin(a, b):
 
 
 _fmin = compiled(_fmin)
-
-
-def _clip01(t):
-    return 0.0 if t < 0.0 else (1.0 if t > 1.0 else t)
-
-
-_clip01 = compiled(_clip01)
 
 
 def phase_reading(r0, r1, lam, beta, tau, t0, grid, logf):
@@ -234,25 +227,7 @@ def direct_columns(g, c, b0, b1, output, freqs):
                 for j in range(n):
                     a[i, j] = complex(g[d, i, j], w * c[d, i, j])
                 x[i] = complex(-b0[d, i], -w * b1[d, i])
-            for k in range(n):
-                pivot, size = k, abs(a[k, k].real) + abs(a[k, k].imag)
-                for i in range(k + 1, n):
-                    if abs(a[i, k].real) + abs(a[i, k].imag) > size:
-                        pivot, size = i, abs(a[i, k].real) + abs(a[i, k].imag)
-                if pivot != k:
-                    for j in range(n):
-                        a[k, j], a[pivot, j] = a[pivot, j], a[k, j]
-                    x[k], x[pivot] = x[pivot], x[k]
-                for i in range(k + 1, n):
-                    factor = a[i, k] / a[k, k]
-                    for j in range(k + 1, n):
-                        a[i, j] -= factor * a[k, j]
-                    x[i] -= factor * x[k]
-            for i in range(n - 1, -1, -1):
-                total = x[i]
-                for j in range(i + 1, n):
-                    total -= a[i, j] * x[j]
-                x[i] = total / a[i, i]
+            _lu_solve(a, x, n)
             out[d, p] = x[output]
     return out
 
