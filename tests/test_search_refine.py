@@ -81,9 +81,9 @@ min_gbw = "2 MHz"
 max_power = "2 mW"
 
 [search]
-population = 40
-generations = 15
-refine = 10
+population = 24
+generations = 8
+refine = 4
 """
 
 
@@ -106,7 +106,7 @@ def test_manifest_hypervolume_is_pymoo_hv_of_front_csv_on_the_spec_window(tmp_pa
     expected = HV(ref_point=np.ones(2))(scaled[(scaled < 1).all(axis=1)])
     stored = manifest["convergence"]["hypervolume"]["two_stage_miller"]
     assert stored == pytest.approx(expected, rel=1e-5)
-    assert manifest["convergence"]["refine_steps"] == 10
+    assert manifest["convergence"]["refine_steps"] == 4
     assert stored > 0
 
 

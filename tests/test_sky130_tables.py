@@ -144,6 +144,7 @@ def test_out_of_table_queries_are_nan_not_extrapolated(tt):
     assert np.isnan(tt.size("n", 60.0, 0.5e-6, 1e-6, 0.9, 0.0)[1]).all()      # gm/ID above the physical limit
 
 
+@pytest.mark.slow      # about 4 minutes of ngspice sweeps over the SKY130 models
 @pytest.mark.spice
 def test_characterize_writes_tables_and_flicker_from_the_models(tmp_path):
     """`ampfront characterize` end to end on one length: both tables and the flicker file, whose

@@ -12,6 +12,7 @@ from ampfront.optimize.simulator.check import check_folder
 from ampfront.topologies.catalog import AGREEMENT
 
 
+@pytest.mark.slow      # every topology's SKY130 front designs also meet BSIM4 in test_spice_topologies
 @pytest.mark.spice
 def test_sky130_front_designs_match_bsim4(demo_run, tmp_path):
     front = pd.read_csv(demo_run / "front.csv")
