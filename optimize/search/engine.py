@@ -70,7 +70,7 @@ class SearchResult:
 def run_search(problem: Problem, population: int, generations: int, seed: int,
                progress: Progress | None = None, refine_steps: int = 0) -> SearchResult:
     """NSGA-II (or III) for `generations`, then, when refine_steps > 0 and the front is feasible, the
-    trust-region refinement of its ends and levels (search/refine.py), which draws no random numbers."""
+    trust-region refinement of its ends and levels (search/refine.py), reproducible by the same seed."""
     tracker = _Tracker(progress)
     res = minimize(problem, algorithm_for(problem.n_obj, population), ("n_gen", generations),
                    seed=seed, callback=tracker, verbose=False)

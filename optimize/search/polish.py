@@ -35,7 +35,7 @@ BACKOFF = (1e-7, 1e-2)  # linearized constraints aim this far inside (least, mos
 PROBE = 1e-6           # forward-difference step, as a share of each variable's search range
 JUMP = 1e-2            # a probe that moves a normalized figure this much has crossed a jump, not a slope
 RADIUS = (0.05, 0.25, 1e-5)   # trust radius: start, largest, converged below (shares of each range)
-CUTS = 8               # cutting planes kept per design (the latest rejected trials since its last kept step)
+CUTS = 8               # cutting planes kept per design (its latest rejected trials)
 NEAR = -0.05           # a trial's constraint this close to its bound joins the cut
 _BIG = 1e8             # the problem's stand-in for a figure it could not evaluate is 1e9
 

@@ -1,11 +1,13 @@
 """After the genetic search: each objective's end, then epsilon-constraint runs (Haimes) spread over the front,
-all by the batched trust-region polish (polish.py). Deterministic: no random numbers are drawn here.
+all finished by the batched trust-region polish (polish.py). Deterministic: the only random numbers are
+scipy's differential evolution's, seeded by the study's seed (ends.py).
 
-The ends come first: each objective alone, from the front design best at it. The levels follow: every run
-minimizes the study's first objective with the others held at a level. With two objectives the levels are
-spaced evenly (in the searched space: log for GBW, power and area) between the two ends, so the front has no
-gap the genetic search left; with more, they are the held values of front designs chosen farthest apart.
-Each level starts from the front design nearest to it.
+The ends come first: each objective alone, by differential evolution from the front's best designs at it,
+then polished from there and from the front's best. The levels follow: every run minimizes the study's
+first objective with the others held at a level. Up to three objectives the levels are a grid over the held
+objectives' range (in the searched space: log for GBW, power and area), so the front has no gap the genetic
+search left; with more, they are the held values of front designs chosen farthest apart. Each level starts
+from the best known answer to its problem, or the design nearest it where none is.
 """
 
 from __future__ import annotations
