@@ -89,14 +89,16 @@ def reference(iterations: int, seed: int) -> dict:
 
 def engine_from(path: Path | None, refine: int = 0):
     if path is None:
-        return lambda problem, population, generations, seed, window: run_search(
-            problem, population, generations, seed, refine_steps=refine)
+        return lambda study, problem, long, seed, window: run_search(
+            problem, study.population, study.generations and study.generations * long, seed, refine_steps=refine,
+            budget=study.budget and study.budget * long, hypervolume=window.hypervolume,
+            front_designs=study.front_designs, stall=long == 1)
     spec = importlib.util.spec_from_file_location("engine_under_test", path)
     module = importlib.util.module_from_spec(spec)
     sys.modules[spec.name] = module      # dataclasses look their module up while the class is made
     spec.loader.exec_module(module)
-    return lambda problem, population, generations, seed, window: module.run_search(
-        problem, population, generations, seed)
+    return lambda study, problem, long, seed, window: module.run_search(
+        problem, study.population, study.generations * long, seed)
 
 
 def textbook(seeds, long: int, search) -> list[str]:
@@ -107,7 +109,7 @@ def textbook(seeds, long: int, search) -> list[str]:
     lines = ["seed | " + " | ".join(f"P at >= {lv / 1e6:g} MHz (vs ref)" for lv in LEVELS) + " | HV | s"]
     for seed in seeds:
         start = time.process_time()
-        result = search(problem, study.population, study.generations * long, seed, window)
+        result = search(study, problem, long, seed, window)
         wall = time.process_time() - start
         cells = []
         for level in LEVELS:
@@ -127,13 +129,13 @@ def demo(path: Path, seeds, long: int, search) -> list[str]:
         hvs, powers, walls = [], [], []
         for seed in seeds:
             start = time.process_time()
-            result = search(problem, study.population, study.generations, seed, window)
+            result = search(study, problem, 1, seed, window)
             walls.append(time.process_time() - start)
             hvs.append(window.hypervolume(result.F) if result.feasible else float("nan"))
             powers.append(values(result.F, study.objectives, "power").min() if result.feasible else float("nan"))
         hv_long = float("nan")
         if long > 1:
-            longer = search(problem, study.population, study.generations * long, seeds[0], window)
+            longer = search(study, problem, long, seeds[0], window)
             hv_long = window.hypervolume(longer.F) if longer.feasible else float("nan")
         p = np.array(powers)
         lines.append(f"{name} | {min(hvs):.4f}-{max(hvs):.4f} | {hv_long:.4f} | "

@@ -64,7 +64,7 @@ def _search(study: Study, tech, progress_factory, workers: int) -> dict[str, Out
         return search_all(study, progress_factory, workers)
     outcomes = {}
     for name in study.topologies:
-        progress = progress_factory(name, study.generations) if progress_factory else None
+        progress = progress_factory(name, study.most_generations) if progress_factory else None
         outcomes[name] = search_topology(study, tech, name, progress)
     return outcomes
 
@@ -102,6 +102,8 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     summary = RunSummary(final, tech.name, study.seed, evaluations, len(table) if fronts else 0, 0.0, misses)
     summary.rejected = {n: o.rejected for n, o in outcomes.items()}
     summary.hypervolume = {f.name: f.hypervolume for f in fronts}
+    summary.searched = {n: {"evaluations": o.evaluations, "generations": len(o.history), "stopped": o.stopped}
+                        for n, o in outcomes.items()}
     if tech.models_missing:
         summary.warnings.append(f"testbenches cannot run yet: {tech.models_missing}")
     summary.piles = [p for f in fronts for p in f.piles]
@@ -155,6 +157,8 @@ def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:
         # Hypervolume of each front on a window the study fixes (its own bounds), so runs of one study at
         # other seeds and budgets compare by one number; and what the refinement spent.
         "convergence": {"window": window_for(study).record(), "refine_steps": study.refine,
+                        "search": study.search_label(),
+                        "topologies": summary.searched,
                         "hypervolume": {n: (round(v, 6) if np.isfinite(v) else None)
                                         for n, v in summary.hypervolume.items()}},
         "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),

@@ -44,18 +44,33 @@ def pytest_sessionfinish(session, exitstatus):
 DEMO = ROOT / "studies" / "sensor_readout.toml"
 
 
+def with_search(text: str, **search) -> str:
+    """A study's text with its [search] table replaced. The shipped studies converge by default (a minute's
+    search); tests that look at outputs, not at convergence, state a short fixed run (population x
+    generations), the budget those studies ran at before the converging search, so their fronts stay put."""
+    head = text.split("\n[search]")[0]
+    return head.rstrip() + "\n\n[search]\n" + "".join(f"{k} = {v}\n" for k, v in search.items())
+
+
+def demo_text(population: int = 100, generations: int = 60) -> str:
+    """The demo study at a fixed budget (its own seed, 7)."""
+    return with_search(DEMO.read_text(), population=population, generations=generations, seed=7)
+
+
 def square_law_study(folder: Path) -> Path:
     """The demo study on the shipped square-law technology, whose netlists use ngspice level-1 models."""
     path = folder / "sensor_readout_generic180.toml"
-    path.write_text(DEMO.read_text().replace('technology = "sky130"', 'technology = "generic180"'))
+    path.write_text(demo_text().replace('technology = "sky130"', 'technology = "generic180"'))
     return path
 
 
 @pytest.fixture(scope="session")
 def demo_run(tmp_path_factory):
-    """The shipped demo study, run once for every test that inspects its outputs."""
-    out = tmp_path_factory.mktemp("demo") / "result"
-    run_study(DEMO, out)
+    """The demo study at a fixed budget, run once for every test that inspects its outputs."""
+    folder = tmp_path_factory.mktemp("demo")
+    (folder / "sensor_readout.toml").write_text(demo_text())
+    out = folder / "result"
+    run_study(folder / "sensor_readout.toml", out)
     return out
 
 

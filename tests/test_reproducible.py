@@ -5,13 +5,12 @@ import shutil
 
 from ampfront.optimize.run import run_study
 
-from .conftest import DEMO
+from .conftest import demo_text
 
 
 def test_same_seed_same_front(tmp_path):
     study = tmp_path / "small.toml"
-    text = DEMO.read_text().replace("population = 100", "population = 40").replace("generations = 60",
-                                                                                    "generations = 12")
+    text = demo_text(40, 12)
     study.write_text(text)
     run_study(study, tmp_path / "a")
     run_study(study, tmp_path / "b")
@@ -52,8 +51,7 @@ def test_parallel_search_gives_the_serial_front(tmp_path):
     """Topologies searched in separate processes give the very same front as one after the other."""
     study = tmp_path / "two.toml"
     # A short search of the demo; its noise bound is dropped so six generations still find designs.
-    text = (DEMO.read_text().replace("population = 100", "population = 24")
-            .replace("generations = 60", "generations = 6").replace('max_noise_rms = "40 uV"', ""))
+    text = demo_text(24, 6).replace('max_noise_rms = "40 uV"', "")
     study.write_text(text)
     run_study(study, tmp_path / "serial", workers=1)
     run_study(study, tmp_path / "parallel", workers=2)

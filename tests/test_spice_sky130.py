@@ -45,10 +45,9 @@ def test_corner_designs_match_bsim4_at_their_temperature(corner, tmp_path):
     corner's temperature (reference: SKY130 BSIM4 models in ngspice, bounds as above)."""
     from ampfront.optimize.run import run_study
 
-    from .conftest import DEMO
+    from .conftest import demo_text
 
-    text = (DEMO.read_text().replace('technology = "sky130"', f'technology = "sky130"\ncorner = "{corner}"')
-            .replace("population = 100", "population = 40").replace("generations = 60", "generations = 15"))
+    text = demo_text(40, 15).replace('technology = "sky130"', f'technology = "sky130"\ncorner = "{corner}"')
     text = text.replace('topologies = ["simple_ota", "telescopic_cascode", "folded_cascode", "two_stage_miller"]',
                         'topologies = ["two_stage_miller"]')
     (tmp_path / "corner.toml").write_text(text)

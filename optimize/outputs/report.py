@@ -63,8 +63,7 @@ def spec_rows(study: Study) -> list[tuple[str, str]]:
 
 def _facts(study: Study, summary) -> list[tuple[str, str]]:
     facts = [("technology", summary.technology), ("seed", str(summary.seed)),
-             ("population x generations", f"{study.population} x {study.generations}"
-              + (f", then {study.refine} refinement steps" if study.refine else "")),
+             ("search", study.search_label()),
              ("designs evaluated (all topologies)", f"{summary.evaluations:,}"),
              ("front designs", str(summary.front_designs)), ("wall time", f"{summary.wall_s:.1f} s")]
     if summary.hypervolume:

@@ -22,6 +22,7 @@ class RunSummary:
     piles: list = field(default_factory=list)     # search.bounds.Pile
     rejected: dict[str, Rejections] = field(default_factory=dict)   # topology -> designs the stability rules refused
     hypervolume: dict[str, float] = field(default_factory=dict)     # topology -> on the study's fixed window
+    searched: dict[str, dict] = field(default_factory=dict)         # topology -> evaluations, generations, why it stopped
 
     @property
     def feasible(self) -> bool:

@@ -73,7 +73,7 @@ def _worker(study, name: str) -> Outcome:
 def search_all(study, progress_factory: Callable | None, workers: int | None = None) -> dict[str, Outcome]:
     """name -> Outcome; one process per topology, up to `workers` at a time."""
     workers = workers or min(len(study.topologies), os.cpu_count() or 1)
-    progress = {n: progress_factory(n, study.generations) for n in study.topologies} if progress_factory else {}
+    progress = {n: progress_factory(n, study.most_generations) for n in study.topologies} if progress_factory else {}
     context = multiprocessing.get_context("spawn")
     relay = context.Queue()
     pool = ProcessPoolExecutor(workers, mp_context=context, initializer=_init_worker, initargs=(relay, os.getpid()))

@@ -85,6 +85,7 @@ class TopologyFront:
     rejected: Rejections = field(default_factory=Rejections)
     hypervolume: float = float("nan")   # on the study's fixed window (search/hypervolume.py)
     refined: int = 0                    # evaluations the refinement spent
+    stopped: str = ""                   # why the search ended: converged, budget or generations
 
 
 @dataclass
@@ -97,6 +98,7 @@ class Infeasible:
     history: list
     corners: object = None
     rejected: Rejections = field(default_factory=Rejections)
+    stopped: str = ""
 
     def describe(self) -> str:
         return f"{self.name}: no design met the spec; the closest misses " + "; ".join(m.describe() for m in self.misses)

@@ -99,7 +99,10 @@ def _probe(problem, U: np.ndarray, moving: np.ndarray, cells=()) -> tuple[_Point
             probes[:, slot, j] = np.where(np.isnan(moves[:, 2 * a + side]), U[:, j], moves[:, 2 * a + side])
     out = problem.evaluate(problem.xl + probes.reshape(-1, n) * (problem.xu - problem.xl),
                            return_as_dictionary=True)
-    Fp, Gp = out["F"].reshape(K, P + 1, -1), out["G"].reshape(K, P + 1, -1)
+    G_all = out.get("G")
+    if G_all is None:                   # an unconstrained problem: one constraint that always holds
+        G_all = np.full((len(out["F"]), 1), -1.0)
+    Fp, Gp = out["F"].reshape(K, P + 1, -1), np.asarray(G_all).reshape(K, P + 1, -1)
     F, G = Fp[:, 0], Gp[:, 0]
     jumpF, jumpG = Fp[:, 1:] - F[:, None], Gp[:, 1:] - G[:, None]
     lost = (np.abs(Fp[:, 1:]) >= _BIG).any(axis=2) | (np.abs(Gp[:, 1:]) >= _BIG).any(axis=2)

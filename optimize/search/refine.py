@@ -67,9 +67,7 @@ def refine(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int = 1) -> 
         x, spent = de_end(problem, X, F, i, seed)
         evaluations += spent
         found.append(np.atleast_2d(x) if x is not None else np.empty((0, problem.n_var)))
-    starts = [np.vstack([found[i], X[np.argsort(F[:, i], kind="stable")[:END_STARTS]]]) for i in range(m)]
-    asked = np.repeat(np.eye(m, dtype=bool), [len(s) for s in starts], axis=0)
-    ends = polish(problem, np.vstack(starts), asked, scale, steps, moving=moving, cells=cells)
+    ends = polish_ends(problem, X, F, steps, found)
     pool_X, pool_F = np.vstack([X, ends.X]), np.vstack([F, ends.F])
     evaluations += ends.evaluations
     if m > 1:
@@ -91,6 +89,20 @@ def refine(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int = 1) -> 
             evaluations += again.evaluations
     front = NonDominatedSorting().do(pool_F, only_non_dominated_front=True)
     return Refined(pool_X[front], pool_F[front], evaluations)
+
+
+def polish_ends(problem, X: np.ndarray, F: np.ndarray, steps: int, extra: list | None = None) -> Refined:
+    """Each objective's end polished alone from the END_STARTS designs best at it (and `extra[i]`, more
+    starts for objective i): the designs the polish reached, not yet merged with X."""
+    m = F.shape[1]
+    moving = moving_variables(problem)
+    scale = np.maximum(np.ptp(F, axis=0), 1e-3)
+    starts = [np.vstack([extra[i] if extra else np.empty((0, problem.n_var)),
+                         X[np.argsort(F[:, i], kind="stable")[:END_STARTS]]]) for i in range(m)]
+    asked = np.repeat(np.eye(m, dtype=bool), [len(s) for s in starts], axis=0)
+    ends = polish(problem, np.vstack(starts), asked, scale, steps, moving=moving,
+                  cells=length_cells(problem, moving))
+    return Refined(ends.X, ends.F, ends.evaluations)
 
 
 def length_cells(problem, moving: np.ndarray) -> list[tuple[int, np.ndarray]]:

@@ -30,13 +30,19 @@ SPEC_SCHEMA = {
     **{b.key: Field(b.dimension) for b in BOUNDS.values() if b.form == "value"},
 }
 SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed": Field("int", positive=False),
-                 "refine": Field("int", positive=False)}
-# Search sizes a 24 GB, 2-core machine finishes; beyond them a study is a typo, not a plan. pymoo's NSGA-II
-# needs a handful of parents; numpy seeds are unsigned 32-bit. `refine`: trust-region steps of the refinement
-# after the genetic search (search/refine.py), 0 for none; past a few hundred it has long converged.
+                 "refine": Field("int", positive=False), "budget": Field("int"), "front_designs": Field("int")}
+# Search sizes a 24 GB, 2-core machine finishes; beyond them a study is a typo, not a plan. NSGA-II needs a
+# handful of parents; numpy seeds are unsigned 32-bit. `refine`: trust-region steps of the refinement after
+# the genetic search (search/refine.py), 0 for none; past a few hundred it has long converged. `budget`: the
+# converging search's most evaluations per topology; `front_designs`: how many designs of its archive a
+# topology's front keeps.
 SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed": (0, 2**32 - 1),
-                 "refine": (0, 1_000)}
-SEARCH_DEFAULTS = {"population": 100, "generations": 60, "seed": 1, "refine": 0}
+                 "refine": (0, 1_000), "budget": (1_000, 100_000_000), "front_designs": (2, 10_000)}
+# Without `generations` the search converges (search/converge.py) and stops on its own, the budget a cap it
+# seldom reaches; with it, a fixed NSGA-II run of population x generations, as studies written for it ran.
+SEARCH_DEFAULTS = {"seed": 1, "refine": 0}
+CONVERGING_DEFAULTS = {"population": 200, "budget": 150_000, "front_designs": 100}
+FIXED_DEFAULTS = {"population": 100}
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]")
 _CORNER_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,23}$")
 TOP_KEYS = {"title", "topologies", "objectives", "technology", "corner", "corners", "supply_tolerance", "spec",
@@ -76,7 +82,7 @@ class Study:
     technology: Path
     corner: str | None
     population: int
-    generations: int
+    generations: int | None  # None: the converging search, up to `budget` evaluations
     seed: int
     digest: str
     text: str = ""          # the study file as read, so a results folder can be rebuilt from it
@@ -86,6 +92,21 @@ class Study:
     supply_tolerance: float = 0.0
     nominal_corner: str | None = None
     refine: int = 0         # trust-region steps after the genetic search (0: none)
+    budget: int | None = None          # the converging search's most evaluations per topology
+    front_designs: int | None = None   # designs the converging search's front keeps per topology
+
+    @property
+    def most_generations(self) -> int:
+        """Generations the search runs at most (a fixed run: exactly)."""
+        return self.generations or self.budget // self.population
+
+    def search_label(self) -> str:
+        if self.generations:
+            label = f"NSGA-II, {self.population} x {self.generations} generations"
+        else:
+            label = (f"converging NSGA-II, population {self.population}, at most {self.budget:,} evaluations "
+                     f"a topology, fronts of up to {self.front_designs} designs")
+        return label + (f", then {self.refine} refinement steps" if self.refine else "")
 
 
 def _input_cm(source: str, raw, supply: float) -> tuple[float, float]:
@@ -138,11 +159,21 @@ def _names(source: str, key: str, raw, choices, low: int, high: int) -> tuple[st
     return tuple(raw)
 
 
-def _search(source: str, raw) -> dict[str, int]:
-    search = {**SEARCH_DEFAULTS, **read_table(source, "search.", raw, SEARCH_SCHEMA)}
+def _search(source: str, raw) -> dict[str, int | None]:
+    given = read_table(source, "search.", raw, SEARCH_SCHEMA)
     for key, (low, high) in SEARCH_LIMITS.items():
-        if not low <= search[key] <= high:
-            raise InputError(source, f"search.{key}", f"a whole number from {low:,} to {high:,}", search[key])
+        if key in given and not low <= given[key] <= high:
+            raise InputError(source, f"search.{key}", f"a whole number from {low:,} to {high:,}", given[key])
+    if "generations" in given:
+        for key in CONVERGING_DEFAULTS.keys() - {"population"}:
+            if key in given:
+                raise InputError(source, f"search.{key}", "no value beside search.generations (a fixed run); "
+                                 "drop generations for a converging search", given[key])
+        return {**SEARCH_DEFAULTS, **FIXED_DEFAULTS, "budget": None, "front_designs": None, **given}
+    search = {**SEARCH_DEFAULTS, **CONVERGING_DEFAULTS, "generations": None, **given}
+    if search["budget"] < 2 * search["population"]:
+        raise InputError(source, "search.budget", f"at least two populations ({2 * search['population']:,} "
+                         "evaluations)", search["budget"])
     return search
 
 
@@ -289,7 +320,7 @@ def load_study(path: Path, topology_names, text: str | None = None) -> Study:
         population=search["population"], generations=search["generations"], seed=search["seed"],
         digest=hashlib.sha256(text.encode("utf-8")).hexdigest(), text=text,
         corners=corner_list, supply_tolerance=tolerance or 0.0, nominal_corner=corner or default_corner(tech_path),
-        refine=search["refine"],
+        refine=search["refine"], budget=search["budget"], front_designs=search["front_designs"],
     )
 
 

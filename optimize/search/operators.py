@@ -1,0 +1,169 @@
+"""NSGA-II's pieces as whole-population array operations on the unit box (Deb, Pratap, Agarwal and Meyarivan,
+"A fast and elitist multiobjective genetic algorithm: NSGA-II", IEEE TEVC 2002): constrained ranking,
+crowding distance, binary tournament, simulated binary crossover (Deb and Agrawal 1995) and polynomial
+mutation (Deb and Goyal 1996). No step loops over designs: a generation of any size is a few numpy calls.
+
+Constraint handling is Deb's feasibility rule (Deb 2000): a feasible design beats an infeasible one, two
+feasible ones compare by rank and then crowding. Two infeasible designs compare by the non-domination rank of
+their constraint violations, each constraint its own objective (constraints handled as objectives, Coello
+2000), then by total violation: a design nearly meeting the gain bound and one nearly meeting the swing bound
+both survive, where a single sum would keep only compromises between them and lose the thin region where both
+hold.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from pymoo.util.nds.non_dominated_sorting import NonDominatedSorting
+
+ETA_CROSSOVER = 15.0     # distribution indices and rates as the NSGA-II paper and pymoo's defaults set them
+ETA_MUTATION = 20.0
+CROSSOVER_RATE = 0.9
+SWAP_RATE = 0.5          # each variable of a crossed pair is crossed with this probability
+
+_SORT = NonDominatedSorting()
+
+
+def violations(G: np.ndarray | None, n: int) -> np.ndarray:
+    """Each constraint's violation per design (n, q), 0 where it holds."""
+    if G is None or G.size == 0:
+        return np.zeros((n, 0))
+    return np.maximum(G, 0.0)
+
+
+def ranks(F: np.ndarray, V: np.ndarray, feasible: np.ndarray | None = None) -> np.ndarray:
+    """Non-domination rank of each feasible design (0 is the best front); infeasible designs rank after every
+    feasible one, by the non-domination rank of their violations V (n, q), a fraction of a rank by total
+    violation. `feasible`: which designs count as feasible (default: no violation)."""
+    cv = V.sum(axis=1)
+    feasible = cv <= 0 if feasible is None else feasible
+    rank = np.full(len(F), np.inf)
+    ok = np.flatnonzero(feasible)
+    if len(ok):
+        for r, front in enumerate(_SORT.do(F[ok])):
+            rank[ok[front]] = r
+    bad = np.flatnonzero(~feasible)
+    if len(bad):
+        top = 0.0 if not len(ok) else rank[ok].max() + 1
+        total = cv[bad]
+        tie = np.argsort(np.argsort(total, kind="stable"), kind="stable") / (len(bad) + 1.0)
+        level = np.zeros(len(bad))
+        violated = V[bad][:, V[bad].max(axis=0) > 0]
+        for r, front in enumerate(_SORT.do(violated)):
+            level[front] = r
+        rank[bad] = top + level + tie
+    return rank
+
+
+def crowding(F: np.ndarray, rank: np.ndarray) -> np.ndarray:
+    """Crowding distance of each design within its own rank, every rank at once: per objective, the gap
+    between a design's two neighbours along that objective, over the rank's extent; a rank's ends are infinite."""
+    n, m = F.shape
+    distance = np.zeros(n)
+    if n == 0:
+        return distance
+    for j in range(m):
+        order = np.lexsort((F[:, j], rank))
+        f, r = F[order, j], rank[order]
+        starts = np.flatnonzero(np.r_[True, r[1:] != r[:-1]])
+        sizes = np.diff(np.r_[starts, n])
+        low, high = f[starts], f[starts + sizes - 1]
+        span = np.repeat(high - low, sizes)
+        gap = np.full(n, np.inf)
+        if n > 2:
+            gap[1:-1] = f[2:] - f[:-2]
+        end = np.zeros(n, bool)
+        end[starts] = True
+        end[starts + sizes - 1] = True
+        with np.errstate(invalid="ignore", divide="ignore"):
+            part = np.where(end, np.inf, np.where(span > 0, gap / np.where(span > 0, span, 1.0), 0.0))
+        distance[order] += part
+    return distance
+
+
+def survivors(F: np.ndarray, V: np.ndarray, count: int,
+              feasible: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """(indices of the `count` survivors, their rank, their crowding): whole ranks in order, the last one cut
+    by crowding distance (most isolated first)."""
+    rank = ranks(F, V, feasible)
+    distance = crowding(F, rank)
+    order = np.lexsort((-distance, rank))[:count]
+    return order, rank[order], distance[order]
+
+
+def tournament(rank: np.ndarray, distance: np.ndarray, count: int, rng: np.random.Generator) -> np.ndarray:
+    """`count` parents by binary tournament: the lower rank wins (feasibility and violation are folded into the
+    rank), then the larger crowding distance, then a coin."""
+    a = rng.integers(0, len(rank), count)
+    b = rng.integers(0, len(rank), count)
+    coin = rng.random(count) < 0.5
+    a_wins = (rank[a] < rank[b]) | ((rank[a] == rank[b]) & ((distance[a] > distance[b])
+                                                            | ((distance[a] == distance[b]) & coin)))
+    return np.where(a_wins, a, b)
+
+
+def crossover(P1: np.ndarray, P2: np.ndarray, rng: np.random.Generator) -> tuple[np.ndarray, np.ndarray]:
+    """Simulated binary crossover of parent pairs (rows of P1, P2) in the unit box, bounded form."""
+    k, n = P1.shape
+    u = rng.random((k, n))
+    crossed = (rng.random((k, 1)) < CROSSOVER_RATE) & (rng.random((k, n)) < SWAP_RATE)
+    y1, y2 = np.minimum(P1, P2), np.maximum(P1, P2)
+    delta = y2 - y1
+    crossed &= delta > 1e-14
+    safe = np.where(crossed, delta, 1.0)
+    e = ETA_CROSSOVER + 1.0
+
+    def spread(beta):
+        alpha = 2.0 - beta ** -e
+        return np.where(u <= 1.0 / alpha, (u * alpha) ** (1.0 / e), (1.0 / (2.0 - u * alpha)) ** (1.0 / e))
+
+    c1 = 0.5 * (y1 + y2 - spread(1.0 + 2.0 * y1 / safe) * delta)
+    c2 = 0.5 * (y1 + y2 + spread(1.0 + 2.0 * (1.0 - y2) / safe) * delta)
+    c1, c2 = np.clip(c1, 0.0, 1.0), np.clip(c2, 0.0, 1.0)
+    flip = rng.random((k, n)) < 0.5
+    c1, c2 = np.where(flip, c2, c1), np.where(flip, c1, c2)
+    return np.where(crossed, c1, P1), np.where(crossed, c2, P2)
+
+
+def mutate(U: np.ndarray, rng: np.random.Generator) -> np.ndarray:
+    """Polynomial mutation in the unit box, each variable with probability 1/n; a child no operator touched
+    (a copy of its parent) has one variable mutated, so few children repeat a design already evaluated."""
+    k, n = U.shape
+    chosen = rng.random((k, n)) < 1.0 / n
+    chosen[np.arange(k), rng.integers(0, n, k)] |= ~chosen.any(axis=1)
+    u = rng.random((k, n))
+    e = ETA_MUTATION + 1.0
+    low_side = u < 0.5
+    xy = np.where(low_side, 1.0 - U, U)      # 1 - distance to the bound the step heads for
+    value = np.where(low_side, 2.0 * u + (1.0 - 2.0 * u) * xy ** e, 2.0 * (1.0 - u) + 2.0 * (u - 0.5) * xy ** e)
+    step = np.where(low_side, value ** (1.0 / e) - 1.0, 1.0 - value ** (1.0 / e))
+    return np.clip(np.where(chosen, U + step, U), 0.0, 1.0)
+
+
+def offspring(U: np.ndarray, rank: np.ndarray, distance: np.ndarray, count: int,
+              rng: np.random.Generator) -> np.ndarray:
+    pairs = (count + 1) // 2
+    parents = tournament(rank, distance, 2 * pairs, rng)
+    c1, c2 = crossover(U[parents[:pairs]], U[parents[pairs:]], rng)
+    return mutate(np.vstack([c1, c2])[:count], rng)
+
+
+def non_dominated(F: np.ndarray) -> np.ndarray:
+    """Indices of the non-dominated rows of F (duplicates kept once)."""
+    if not len(F):
+        return np.zeros(0, int)
+    front = np.asarray(_SORT.do(F, only_non_dominated_front=True), int)
+    _, first = np.unique(np.round(F[front], 12), axis=0, return_index=True)
+    return np.sort(front[first])
+
+
+def thin(F: np.ndarray, count: int) -> np.ndarray:
+    """Indices of `count` rows of a non-dominated set F kept by removing the most crowded a few at a time
+    (crowding recomputed between removals, each objective's ends always kept)."""
+    keep = np.arange(len(F))
+    while len(keep) > count:
+        distance = crowding(F[keep], np.zeros(len(keep)))
+        drop = max(1, (len(keep) - count) // 4)
+        gone = np.argsort(distance, kind="stable")[:drop]
+        keep = np.delete(keep, gone)
+    return keep
