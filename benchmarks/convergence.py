@@ -134,7 +134,7 @@ def demo(path: Path, seeds, long: int, search) -> list[str]:
             hvs.append(window.hypervolume(result.F) if result.feasible else float("nan"))
             powers.append(values(result.F, study.objectives, "power").min() if result.feasible else float("nan"))
         hv_long = float("nan")
-        if long > 1:
+        if long > 1 and np.isfinite(hvs).any():     # a topology that meets nothing has no front to compare
             longer = search(study, problem, long, seeds[0], window)
             hv_long = window.hypervolume(longer.F) if longer.feasible else float("nan")
         p = np.array(powers)

@@ -12,6 +12,7 @@ from ampfront import topologies
 from ampfront.topologies import kernels
 
 from ampfront.optimize.search.problem import DesignProblem
+from ampfront.optimize.search.converge import converge
 from ampfront.optimize.search.engine import run_search
 from ampfront.optimize.spec.study import Study
 from ampfront.topologies.process.techfile import load, shipped
@@ -71,6 +72,12 @@ def _bench_technology(tech_path, designs: int, repeats: int) -> list[str]:
         model = generations * population / (designs / best)
         lines.append(f"{name} on {tech.name}: {1e3 * (wall - model) / generations:.1f} ms per generation beyond bulk "
                      f"model time (NSGA-II and per-call model overhead, population {population})")
+        # The converging search (the default) at its default population, with no polish of the ends.
+        population = 200
+        wall = _timed(lambda: converge(problem, population, population * (generations + 1), 1, stall=False))
+        model = generations * population / (designs / best)
+        lines.append(f"{name} on {tech.name}: {1e3 * (wall - model) / generations:.1f} ms per generation beyond bulk "
+                     f"model time (converging search and per-call model overhead, population {population})")
     return lines
 
 

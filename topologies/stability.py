@@ -410,6 +410,10 @@ def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int, b
     lin_grid = t_ring[:, None] * np.linspace(0.0, 1.0, lin_points + 1)[None, 1:]
     times = np.sort(np.concatenate([log_grid, np.maximum(lin_grid, t_start[:, None])], axis=1), axis=1)
     size = times.shape[1]
+    if kernels.enabled():
+        return stability_kernels.sampled_step(np.ascontiguousarray(p), np.ascontiguousarray(c),
+                                              np.ascontiguousarray(final, float), np.ascontiguousarray(scale, float),
+                                              times, np.ascontiguousarray(band, float))
 
     def y(t):
         """Step response at times t (designs, K); mode by mode to keep memory at (designs, K)."""

@@ -233,3 +233,80 @@ def direct_columns(g, c, b0, b1, output, freqs):
 
 
 direct_columns = compiled(direct_columns)
+
+
+def _step_error(p, c, final, gain, d, t):
+    """(y(t) - final) x gain for design d, summed mode by mode as stability._sampled_step's y does."""
+    total = 0.0
+    for j in range(p.shape[1]):
+        total += (c[d, j] * np.exp(p[d, j] * t)).real
+    return ((final[d] + total) - final[d]) * gain
+
+
+def sampled_step(p, c, final, scale, times, band):
+    """Overshoot (%), settling time (s) and largest slope of each design's step on its own time grid: the
+    compiled twin of the sampling, golden-section peak and settling bisection of stability._sampled_step,
+    same arithmetic and iteration counts, one design at a time with no (designs, times) temporaries."""
+    designs, size = times.shape
+    overshoot = np.empty(designs)
+    settling = np.empty(designs)
+    slope = np.empty(designs)
+    err = np.empty(size)
+    for d in range(designs):
+        gain = (-1.0 if final[d] < 0 else 1.0) / scale[d]
+        k, s = 0, 0.0
+        for i in range(size):
+            # One exponential a mode serves the response and its slope (the reference computes it twice).
+            total, rate = 0.0, 0.0
+            for j in range(p.shape[1]):
+                e = np.exp(p[d, j] * times[d, i])
+                total += (c[d, j] * e).real
+                rate += ((c[d, j] * p[d, j]) * e).real
+            err[i] = ((final[d] + total) - final[d]) * gain
+            rate = rate * gain
+            # numpy's argmax (the first NaN, else the first largest) and max (NaN wins).
+            if i == 0:
+                s = rate
+            else:
+                if not math.isnan(err[k]) and (math.isnan(err[i]) or err[i] > err[k]):
+                    k = i
+                if not math.isnan(s) and (math.isnan(rate) or rate > s):
+                    s = rate
+        slope[d] = s
+        a = times[d, max(k - 1, 0)]
+        b = times[d, min(k + 1, size - 1)]
+        for _ in range(40):
+            x1, x2 = b - GOLDEN * (b - a), a + GOLDEN * (b - a)
+            if _step_error(p, c, final, gain, d, x1) > _step_error(p, c, final, gain, d, x2):
+                b = x2
+            else:
+                a = x1
+        mid_peak = _step_error(p, c, final, gain, d, 0.5 * (a + b))
+        peak = err[k]                       # numpy's fmax: a NaN loses to a number
+        if math.isnan(peak) or (not math.isnan(mid_peak) and mid_peak > peak):
+            peak = mid_peak
+        overshoot[d] = np.nan if math.isnan(peak) else 100.0 * max(peak, 0.0)
+        last = -1
+        for i in range(size - 1, -1, -1):
+            if abs(err[i]) > band[d]:
+                last = i
+                break
+        if last < 0:
+            settling[d] = 0.0
+            continue
+        if last >= size - 1:
+            settling[d] = np.inf
+            continue
+        lo, hi = times[d, last], times[d, last + 1]
+        for _ in range(40):
+            mid = 0.5 * (lo + hi)
+            if abs(_step_error(p, c, final, gain, d, mid)) > band[d]:
+                lo = mid
+            else:
+                hi = mid
+        settling[d] = hi
+    return overshoot, settling, slope
+
+
+_step_error = compiled(_step_error)
+sampled_step = compiled(sampled_step)

@@ -19,7 +19,7 @@ import numpy as np
 
 from ampfront.optimize.search import operators as op
 
-STALL = 0.002        # the archive's hypervolume grew by less than this share ...
+STALL = 0.005        # the archive's hypervolume grew by less than this share ...
 PATIENCE = 30        # ... over this many generations: converged
 RESTARTS = 3        # a search stalled with no feasible design starts afresh at most this many times
 MIN_GENERATIONS = 40

@@ -41,7 +41,7 @@ SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed"
 # Without `generations` the search converges (search/converge.py) and stops on its own, the budget a cap it
 # seldom reaches; with it, a fixed NSGA-II run of population x generations, as studies written for it ran.
 SEARCH_DEFAULTS = {"seed": 1, "refine": 0}
-CONVERGING_DEFAULTS = {"population": 200, "budget": 150_000, "front_designs": 100}
+CONVERGING_DEFAULTS = {"population": 200, "budget": 100_000, "front_designs": 100}
 FIXED_DEFAULTS = {"population": 100}
 _CONTROL = re.compile(r"[\x00-\x1f\x7f]")
 _CORNER_NAME = re.compile(r"^[A-Za-z][A-Za-z0-9_]{0,23}$")
