@@ -104,6 +104,9 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     summary.hypervolume = {f.name: f.hypervolume for f in fronts}
     summary.searched = {n: {"evaluations": o.evaluations, "generations": len(o.history), "stopped": o.stopped}
                         for n, o in outcomes.items()}
+    summary.warnings += [f"{n}: the search reached its budget ({study.budget:,} evaluations) before its front "
+                         "settled; a larger [search] budget may improve it"
+                         for n, o in outcomes.items() if o.stopped == "budget"]
     if tech.models_missing:
         summary.warnings.append(f"testbenches cannot run yet: {tech.models_missing}")
     summary.piles = [p for f in fronts for p in f.piles]

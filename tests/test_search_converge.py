@@ -127,3 +127,38 @@ def test_variation_stays_in_the_box_and_seldom_repeats_a_parent():
     interior = op.offspring(U[40:], np.zeros(160), np.ones(160), 1000, rng)
     repeats = (interior[:, None, :] == U[None, 40:, :]).all(axis=2).any(axis=1)
     assert repeats.mean() < 0.01
+
+
+TINY = """
+title = "converging search, tiny"
+topologies = ["two_stage_miller"]
+technology = "generic180"
+[spec]
+supply = "1.8 V"
+load_capacitance = "2 pF"
+min_gain = "60 dB"
+min_gbw = "2 MHz"
+[search]
+seed = 4
+"""
+
+
+def test_run_records_why_each_search_stopped(tmp_path):
+    import json
+
+    from ampfront.optimize.run import run_study
+
+    (tmp_path / "settled.toml").write_text(TINY)
+    (tmp_path / "short.toml").write_text(TINY + "budget = 2000\npopulation = 100\nfront_designs = 12\n")
+    settled = run_study(tmp_path / "settled.toml", tmp_path / "a")
+    short = run_study(tmp_path / "short.toml", tmp_path / "b")
+    record = json.loads((tmp_path / "a" / "manifest.json").read_text())["convergence"]
+    assert record["topologies"]["two_stage_miller"]["stopped"] == "converged"
+    assert not any("budget" in w for w in settled.warnings)
+    record = json.loads((tmp_path / "b" / "manifest.json").read_text())["convergence"]
+    assert record["topologies"]["two_stage_miller"] == {"evaluations": short.evaluations, "generations": 20,
+                                                        "stopped": "budget"}
+    assert any("reached its budget (2,000 evaluations)" in w for w in short.warnings)
+    assert short.front_designs == 12
+    assert "ran its generations" not in (tmp_path / "b" / "report.html").read_text()
+    assert "stopped at its budget after 20 generations" in (tmp_path / "b" / "report.html").read_text()

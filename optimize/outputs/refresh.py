@@ -42,6 +42,9 @@ def refresh(folder: Path) -> Path:
     for name, value in ((manifest.get("convergence") or {}).get("hypervolume") or {}).items():
         if isinstance(value, (int, float)):
             summary.hypervolume[name] = float(value)
+    for name, record in ((manifest.get("convergence") or {}).get("topologies") or {}).items():
+        if isinstance(record, dict) and {"evaluations", "generations", "stopped"} <= record.keys():
+            summary.searched[name] = record
     for name, record in (manifest.get("rejected_by_stability") or {}).items():
         if isinstance(record, dict):
             summary.rejected[name] = Rejections.from_record(record)

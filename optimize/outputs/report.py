@@ -61,6 +61,9 @@ def spec_rows(study: Study) -> list[tuple[str, str]]:
     return rows
 
 
+_STOPPED = {"converged": "converged", "budget": "stopped at its budget", "generations": "ran its generations"}
+
+
 def _facts(study: Study, summary) -> list[tuple[str, str]]:
     facts = [("technology", summary.technology), ("seed", str(summary.seed)),
              ("search", study.search_label()),
@@ -69,6 +72,11 @@ def _facts(study: Study, summary) -> list[tuple[str, str]]:
     if summary.hypervolume:
         facts.append(("hypervolume on the study's window", ", ".join(
             f"{n} {v:.4f}" for n, v in summary.hypervolume.items() if math.isfinite(v))))
+    if summary.searched:
+        # Why each search ended: a front that stopped on the budget may not have converged.
+        facts.append(("search per topology", "; ".join(
+            f"{n}: {_STOPPED.get(r['stopped'], r['stopped'])} after {int(r['generations']):,} generations "
+            f"({int(r['evaluations']):,} designs)" for n, r in summary.searched.items())))
     facts += [("warning", w) for w in summary.warnings]
     return facts
 

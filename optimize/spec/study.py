@@ -34,8 +34,8 @@ SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed"
 # Search sizes a 24 GB, 2-core machine finishes; beyond them a study is a typo, not a plan. NSGA-II needs a
 # handful of parents; numpy seeds are unsigned 32-bit. `refine`: trust-region steps of the refinement after
 # the genetic search (search/refine.py), 0 for none; past a few hundred it has long converged. `budget`: the
-# converging search's most evaluations per topology; `front_designs`: how many designs of its archive a
-# topology's front keeps.
+# converging genetic search's most evaluations per topology (the polish of the ends comes on top);
+# `front_designs`: how many designs of its archive a topology's front keeps.
 SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed": (0, 2**32 - 1),
                  "refine": (0, 1_000), "budget": (1_000, 100_000_000), "front_designs": (2, 10_000)}
 # Without `generations` the search converges (search/converge.py) and stops on its own, the budget a cap it
