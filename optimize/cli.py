@@ -47,7 +47,12 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
 
     def factory(name: str, generations: int):
         task = bar.add_task(name, total=generations, feasible=0, hv=0.0)
-        return lambda gen, feasible, hv: bar.update(task, completed=gen, feasible=feasible, hv=hv)
+
+        def update(gen: int, feasible: int, hv: float, done: bool = False) -> None:
+            # A converging search ends before its most generations: the bar then closes at what it ran.
+            extra = {"total": gen} if done else {}
+            bar.update(task, completed=gen, feasible=feasible, hv=hv, **extra)
+        return update
 
     try:
         with bar:

@@ -29,7 +29,9 @@ END_STEPS = 40
 # Das-Dennis partitions giving 84 (4 objectives) and 70 (5 objectives) reference directions.
 _PARTITIONS = {4: 6, 5: 4}
 
-Progress = Callable[[int, int, float], None]  # generation, feasible designs, hypervolume
+# generation, feasible designs, hypervolume; once more with done=True when the search has ended (a converging
+# search ends before its most generations, and a progress bar then shows it complete).
+Progress = Callable[..., None]
 
 
 def algorithm_for(n_obj: int, population: int):
@@ -97,11 +99,17 @@ def run_search(problem: Problem, population: int, generations: int | None, seed:
             if front_designs and len(F) > front_designs:
                 keep = operators.thin(F, front_designs)
                 X, F = X[keep], F[keep]
+        if progress and found.history:
+            # The bar ends on the front as written (thinned, ends polished), the figure the run then prints.
+            generation, feasible, score = found.history[-1]
+            progress(generation, feasible, hypervolume(F) if found.feasible and hypervolume else score, done=True)
         return _finish(problem, X, F, found.feasible, found.history, evaluations, refine_steps, seed,
                        found.generations, found.stopped)
     tracker = _Tracker(progress)
     res = minimize(problem, algorithm_for(problem.n_obj, population), ("n_gen", generations),
                    seed=seed, callback=tracker, verbose=False)
+    if progress and tracker.history:
+        progress(*tracker.history[-1], done=True)
     # pymoo leaves `opt` empty when no design was feasible: fall back to the least-violating ones.
     opt = res.opt if res.opt is not None else res.pop[np.argsort(res.pop.get("CV").ravel())[:10]]
     feasible = opt.get("CV").ravel() <= 0

@@ -67,7 +67,7 @@ def _worker(study, name: str) -> Outcome:
     from ampfront.topologies.process.techfile import load
 
     tech = load(study.technology, study.corner)   # loaded in the worker: tables are not pickled across
-    return search_topology(study, tech, name, lambda g, f, h: _relay.put((name, g, f, h)))
+    return search_topology(study, tech, name, lambda g, f, h, done=False: _relay.put((name, g, f, h, done)))
 
 
 def search_all(study, progress_factory: Callable | None, workers: int | None = None) -> dict[str, Outcome]:
@@ -118,8 +118,8 @@ def _stop(pool: ProcessPoolExecutor) -> None:
 def _drain(relay, progress) -> None:
     while True:
         try:
-            name, generation, feasible, hv = relay.get_nowait()
+            name, generation, feasible, hv, done = relay.get_nowait()
         except (queue_module.Empty, OSError, ValueError):
             return
         if name in progress:
-            progress[name](generation, feasible, hv)
+            progress[name](generation, feasible, hv, done=done)
