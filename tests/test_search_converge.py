@@ -162,3 +162,21 @@ def test_run_records_why_each_search_stopped(tmp_path):
     assert short.front_designs == 12
     assert "ran its generations" not in (tmp_path / "b" / "report.html").read_text()
     assert "stopped at its budget after 20 generations" in (tmp_path / "b" / "report.html").read_text()
+
+
+def test_report_rebuilt_from_a_tampered_manifest_keeps_only_valid_stop_records(tmp_path):
+    import json
+
+    from ampfront.optimize.outputs.refresh import refresh
+    from ampfront.optimize.run import run_study
+
+    (tmp_path / "s.toml").write_text(TINY + "budget = 2000\npopulation = 100\n")
+    run_study(tmp_path / "s.toml", tmp_path / "out")
+    path = tmp_path / "out" / "manifest.json"
+    manifest = json.loads(path.read_text())
+    manifest["convergence"]["topologies"] = {
+        "two_stage_miller": {"evaluations": 2000, "generations": "<b>many</b>", "stopped": "budget"},
+        "other": {"evaluations": 1, "generations": 1, "stopped": "<script>alert(1)</script>"}}
+    path.write_text(json.dumps(manifest))
+    page = refresh(tmp_path / "out").read_text()
+    assert "search per topology" not in page and "alert(1)" not in page

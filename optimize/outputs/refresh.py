@@ -43,7 +43,9 @@ def refresh(folder: Path) -> Path:
         if isinstance(value, (int, float)):
             summary.hypervolume[name] = float(value)
     for name, record in ((manifest.get("convergence") or {}).get("topologies") or {}).items():
-        if isinstance(record, dict) and {"evaluations", "generations", "stopped"} <= record.keys():
+        # A manifest is a file: only whole numbers and a known reason reach the report.
+        if (isinstance(record, dict) and isinstance(record.get("evaluations"), int)
+                and isinstance(record.get("generations"), int) and record.get("stopped") in report.STOP_PHRASES):
             summary.searched[name] = record
     for name, record in (manifest.get("rejected_by_stability") or {}).items():
         if isinstance(record, dict):

@@ -61,7 +61,8 @@ def spec_rows(study: Study) -> list[tuple[str, str]]:
     return rows
 
 
-_STOPPED = {"converged": "converged", "budget": "stopped at its budget", "generations": "ran its generations"}
+# Why a topology's search ended (search/engine.py SearchResult.stopped), as the report says it.
+STOP_PHRASES = {"converged": "converged", "budget": "stopped at its budget", "generations": "ran its generations"}
 
 
 def _facts(study: Study, summary) -> list[tuple[str, str]]:
@@ -75,7 +76,7 @@ def _facts(study: Study, summary) -> list[tuple[str, str]]:
     if summary.searched:
         # Why each search ended: a front that stopped on the budget may not have converged.
         facts.append(("search per topology", "; ".join(
-            f"{n}: {_STOPPED.get(r['stopped'], r['stopped'])} after {int(r['generations']):,} generations "
+            f"{n}: {STOP_PHRASES.get(r['stopped'], r['stopped'])} after {int(r['generations']):,} generations "
             f"({int(r['evaluations']):,} designs)" for n, r in summary.searched.items())))
     facts += [("warning", w) for w in summary.warnings]
     return facts

@@ -65,11 +65,12 @@ def _generic_hypervolume(F0: np.ndarray) -> Callable[[np.ndarray], float]:
 
 def converge(problem, population: int, budget: int, seed: int,
              hypervolume: Callable[[np.ndarray], float] | None = None,
-             progress: Callable[[int, int, float], None] | None = None, stall: bool = True) -> Converged:
+             progress: Callable[..., None] | None = None, stall: bool = True) -> Converged:
     """Search until the archive's hypervolume has grown by less than STALL over PATIENCE generations (at least
     MIN_GENERATIONS), or `budget` evaluations are spent. With no feasible design yet, the least violation
-    stands in for the hypervolume; a near miss that stalls starts afresh (RESTARTS). `hypervolume`: the study's measure of a front (minimized objectives), or None for a generic one.
-    stall False: spend the whole budget (a reference run to measure convergence against)."""
+    stands in for the hypervolume; a near miss that stalls starts afresh (RESTARTS). `hypervolume`: the
+    study's measure of a front (minimized objectives), or None for a generic one. stall False: spend the whole
+    budget (a reference run to measure convergence against)."""
     rng = np.random.default_rng(seed)
     n = problem.n_var
     U = rng.random((population, n))

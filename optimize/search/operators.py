@@ -31,12 +31,12 @@ def violations(G: np.ndarray | None, n: int) -> np.ndarray:
     return np.maximum(G, 0.0)
 
 
-def ranks(F: np.ndarray, V: np.ndarray, feasible: np.ndarray | None = None) -> np.ndarray:
+def ranks(F: np.ndarray, V: np.ndarray) -> np.ndarray:
     """Non-domination rank of each feasible design (0 is the best front); infeasible designs rank after every
     feasible one, by the non-domination rank of their violations V (n, q), a fraction of a rank by total
-    violation. `feasible`: which designs count as feasible (default: no violation)."""
+    violation."""
     cv = V.sum(axis=1)
-    feasible = cv <= 0 if feasible is None else feasible
+    feasible = cv <= 0
     rank = np.full(len(F), np.inf)
     ok = np.flatnonzero(feasible)
     if len(ok):
@@ -81,11 +81,10 @@ def crowding(F: np.ndarray, rank: np.ndarray) -> np.ndarray:
     return distance
 
 
-def survivors(F: np.ndarray, V: np.ndarray, count: int,
-              feasible: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def survivors(F: np.ndarray, V: np.ndarray, count: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(indices of the `count` survivors, their rank, their crowding): whole ranks in order, the last one cut
     by crowding distance (most isolated first)."""
-    rank = ranks(F, V, feasible)
+    rank = ranks(F, V)
     distance = crowding(F, rank)
     order = np.lexsort((-distance, rank))[:count]
     return order, rank[order], distance[order]
