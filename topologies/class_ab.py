@@ -86,7 +86,7 @@ class ClassABOutput:
         )
 
     def build(self, x, tech: Technology, cond: Conditions) -> StageBuild:
-        vdd, vout = cond.vdd, cond.v_cm
+        vdd, vout = cond.vdd, cond.out_level
         iq = x["i_quiescent"]
         zero = np.zeros_like(iq)
         i_ref = iq * x["float_ratio"]
@@ -116,9 +116,10 @@ class ClassABOutput:
             return state.float_balance(tech, gp, gn)
 
         def gate_up(gn):
-            """Pull-up gate level that balances the pull-down's current with the output at vout."""
+            """Pull-up gate level that balances the pull-down's current, less what a load pushes into the
+            output, with the output at vout."""
             i_dn = tech.current("n", w_dn, l_out, gn, zero + vout, zero)
-            return vdd - tech.vgs_for_current("p", w_up, l_out, i_dn, zero + vdd - vout, zero)
+            return vdd - tech.vgs_for_current("p", w_up, l_out, i_dn - cond.i_out, zero + vdd - vout, zero)
 
         gn_est = vbn - tech.vgs_for_current("n", w_fn, l_fl, i_ref, v_float, vgs_dn)
         gn = bisect_decreasing(lambda g: float_balance(gate_up(g), g), zero + 0.02, zero + vdd - 0.02,

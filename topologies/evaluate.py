@@ -15,7 +15,9 @@ from .kcl import node_imbalance
 from .noise import noise_metrics
 from .smallsignal import Circuit, loop_metrics
 from .application import network_noise_resistance
+from .geometry import Recording
 from .stability import input_coupling, stability_from_circuits
+from .step_ends import step_edges
 
 
 # What the AC source moves in each measurement: the differential (open-loop) gain drives inp with inn held
@@ -104,10 +106,14 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
     # A settling spec or objective needs the step response of every design the search sees; the outputs
     # (step=True) want it wherever the study states an application.
     settles = cond.settling or (step and cond.applied)
+    # A stated output step is settled edge by edge, each at the operating point of the level it ends at
+    # (topologies.step_ends); a small step (step_v = 0) at the quiescent point.
+    by_edge = settles and cond.step_v > 0
     cond = cond.network_loaded()
     # Dead or off-table devices give inf/NaN for their designs only; the search reads those as violations.
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        build = topology.build(x, tech, cond)
+        recording = Recording(tech)
+        build = topology.build(x, recording, cond)
         circuit = small_signal(build, cond)
         loop = loop_metrics(circuit, "out")
         noise = noise_metrics(circuit, build, tech, loop.gain, cond.noise_band, cond.noise_spots, r_noise)
@@ -131,10 +137,21 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         # linear swing (typically the network's load current outgrowing the output's sink) is never reached
         # with the loop's gain, so that step does not settle there.
         reach = (cond.v_cm - 0.5 * cond.step_v >= out_low) & (cond.v_cm + 0.5 * cond.step_v <= out_high)
-        settle = (reported.get("slew_v_per_s"), cond.step_v, cond.settle_band, reach) if settles else None
+        settle = (reported.get("slew_v_per_s"), cond.step_v, cond.settle_band, reach) if settles and not by_edge else None
         # The network's pole at inn sees the input devices' gate row, each capacitance to the node it goes to.
         coupling = input_coupling(build, circuit.nodes) if r_noise > 0 else None
         stability = _stability(circuit, common, loop, cond.beta, step, settle, r_noise, cond.inverting, coupling)
+        if by_edge:
+            def circuits(built, at):
+                differential = small_signal(built, at)
+                return (differential, small_signal(built, at, "common_mode", differential.block_singular),
+                        input_coupling(built, differential.nodes) if r_noise > 0 else None)
+
+            edges = step_edges(topology, x, tech, cond, build, recording.widths, circuit, reported, circuits,
+                               r_noise, reach)
+            # Only designs whose open loop works have stability figures (_stability); the rest read NaN.
+            working = ~np.isnan(stability["cl_stable"])
+            stability.update({k: np.where(working, v, np.nan) for k, v in edges.items()})
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     designs = len(build.supply_current)

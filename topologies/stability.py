@@ -71,6 +71,7 @@ import numpy as np
 from .base import Build, Conditions
 from . import kernels, stability_kernels
 from .loop_kernels import modal_grid_all
+from .slewing import ConstantSlew
 from .smallsignal import Circuit, solve_batched
 
 SETTLE_BAND = 0.01          # settling band, fraction of the final value
@@ -460,18 +461,20 @@ def _sampled_step(p, c, final, scale, t_start, t_end, t_ring, lin_points: int, b
 
 def large_step_settling(closed: _Modal, finite: np.ndarray, stable: np.ndarray, slope: np.ndarray, slew,
                         step_v: float, band: float, reach=None) -> np.ndarray:
-    """Settling time (s) of an output step `step_v` (V) to `band` (fraction of the step) at slew rate `slew`
-    (V/s, one per design), slewing then linear (module doc), and the step's largest slope (V/s: the slew
-    rate where it slews, else step_v s_max; NaN for a small step); `slope` is the unit step's s_max.
+    """Settling time (s) of an output step `step_v` (V) to `band` (fraction of the step), slewing then
+    linear (module doc), and the step's largest slope (V/s: the fastest slew where it slews, else
+    step_v s_max; NaN for a small step); `slope` is the unit step's s_max. `slew`: the slew rate (V/s, one
+    per design), or a path that knows how the rate changes along the edge (topologies.slewing).
     `reach` (bool per design): both ends of the step lie within the output's linear swing; where not,
     the output never settles at the stated level (inf)."""
-    slew = np.asarray(slew, float)
+    path = slew if hasattr(slew, "entry") else ConstantSlew(slew)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        v_lin = slew / slope
+        v_lin = path.entry(slope, step_v)
         slewing = step_v > v_lin
-        t_slew = np.where(slewing, (step_v - v_lin) / slew, 0.0)
+        t_slew = np.where(slewing, path.time(step_v - np.clip(v_lin, 0.0, step_v), step_v), 0.0)
         share = np.where(slewing, v_lin / step_v, 1.0)
         share = np.where(np.isfinite(share) & (share > 0), share, 1.0)
+        never = slewing & ~(np.isfinite(t_slew) & (v_lin > 0))
         t_slew = np.where(np.isfinite(t_slew), t_slew, 0.0)
         # What each mode carries into the linear phase, as a fraction of the whole step. The loop's own
         # modes see only the remainder V_lin the slewing leaves (share). A mode much slower than the slew
@@ -491,9 +494,13 @@ def large_step_settling(closed: _Modal, finite: np.ndarray, stable: np.ndarray, 
     weighted.r1 = np.where(finite, lam * (weight * (closed.r1 / lam - closed.r0) + closed.r0), closed.r1)
     _, t_linear, _ = _step(weighted, finite, stable, band)
     settle = np.where(np.isfinite(v_lin) | (step_v == 0), t_slew + t_linear, np.nan)
+    # A load that takes the driving device's whole current before the edge ends: the level is not reached.
+    settle = np.where(never & ~np.isnan(settle), np.inf, settle)
     if reach is not None:
         settle = np.where(np.asarray(reach, bool) | np.isnan(settle), settle, np.inf)
-    steepest = np.fmin(slew, step_v * slope) if step_v > 0 else np.full(len(settle), np.nan)
+    with np.errstate(invalid="ignore"):
+        steepest = (np.fmin(path.steepest(step_v), step_v * slope) if step_v > 0
+                    else np.full(len(settle), np.nan))
     return settle, steepest
 
 
@@ -560,6 +567,78 @@ def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float =
         return np.where(finite, -1.0 / np.where(finite, lam, 1.0), np.nan + 0j)
 
 
+def _closed_loop(differential: Circuit, common_mode: Circuit, beta: float, r_source: float, inverting: bool,
+                 coupling, guarded: bool = False):
+    """(closed-loop modal form driven where the configuration's signal enters, g_n, c_n, tau) of circuits
+    already sanitized; tau is the network pole's time constant per design (None without a network).
+    `guarded`: designs whose closed-loop G' is singular get a harmless stand-in (returned as a fifth item,
+    a mask) instead of stopping LAPACK for all; the search's own circuits were screened before."""
+    g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta, r_source, coupling)
+    singular = np.zeros(len(g), bool)
+    if guarded:
+        with np.errstate(all="ignore"):
+            sign, logdet = np.linalg.slogdet(g)
+        singular = (sign == 0) | ~np.isfinite(logdet) | ~np.isfinite(c).all(axis=(1, 2))
+        g[singular], c[singular] = np.eye(g.shape[1]), 0.0
+    g_n, c_n = inverting_column(differential, common_mode)
+    tau = None
+    if r_source > 0:
+        tau = r_source * (input_capacitance(g_n, c_n) if coupling is None else coupling[0])
+    if inverting:
+        # The signal enters through the network at inn, the amplifier's inp held at the common mode:
+        # v(inn) = beta v(out) + (1 - beta) v(sig), so the drive is (1 - beta) times the inn column, or,
+        # behind the network's pole, the extra row's (1 - beta) (closed_loop_matrices). The poles are the
+        # same; the zeros (no feedforward through the input pair from inp) and the sign are not.
+        if r_source > 0:
+            g_p, c_p = np.zeros_like(g_p), np.zeros_like(c_p)
+            g_p[:, -1] = -(1.0 - beta)
+        else:
+            g_p, c_p = (1.0 - beta) * g_n, (1.0 - beta) * c_n
+    if guarded:
+        g_p, c_p = np.where(singular[:, None], 0.0, g_p), np.where(singular[:, None], 0.0, c_p)
+    with np.errstate(all="ignore"):
+        closed = _Modal(g, c, g_p, c_p, out)
+    return (closed, g_n, c_n, tau, singular) if guarded else (closed, g_n, c_n, tau)
+
+
+def _closed_figures(closed: _Modal):
+    """(finite, rhp count, stable, dominant pole in rad/s, probe frequencies) of a closed loop's modal form:
+    the dominant pole is the mode carrying the largest part of the step transient, and the modal form is
+    checked against direct solves about its frequency."""
+    finite = _finite_poles(closed.lam)
+    lam = np.where(finite, closed.lam, 1.0)
+    poles = np.where(finite, -1.0 / lam, 0.0)
+    # Re(lam) <= 0 is Re(s) >= 0: the marginal case counts against the design.
+    rhp = (finite & (closed.lam.real <= 1e-12 * np.abs(closed.lam))).sum(axis=1).astype(float)
+    weight = np.where(finite, np.abs(closed.r1 / lam - closed.r0), -1.0)
+    dominant = poles[np.arange(len(lam)), np.argmax(weight, axis=1)]
+    pole_hz = np.abs(dominant) / (2 * np.pi)
+    probe = np.where(pole_hz > 0, pole_hz, 1.0)[:, None] * np.array([0.5, 1.0, 2.0])
+    return finite, rhp, rhp == 0, dominant, probe
+
+
+def edge_settling(differential: Circuit, common_mode: Circuit, beta: float, path, step_v: float, band: float,
+                  reach=None, r_source: float = 0.0, inverting: bool = False, coupling=None):
+    """(settling time s, steepest slope V/s) of one edge of a large step: slewing along `path`
+    (topologies.slewing), then settling linearly in the closed loop of these circuits, the operating point
+    at the level the edge ends at. NaN where the circuits are not finite or the modal form misses the
+    direct solve; inf where the closed loop is unstable or the level is out of reach."""
+    differential, common_mode, broken = _sanitized(differential, common_mode)
+    if r_source <= 0:
+        coupling = None
+    closed, _, _, _, singular = _closed_loop(differential, common_mode, beta, r_source, inverting, coupling,
+                                             guarded=True)
+    broken |= singular
+    with np.errstate(all="ignore"):
+        finite, _, stable, _, probe = _closed_figures(closed)
+        bad = closed.checked(probe)
+        _, _, slope = _step(closed, finite, stable)
+        settle, steepest = large_step_settling(closed, finite, stable, slope, path, step_v, band, reach)
+    settle[bad | broken] = np.nan
+    steepest[broken] = np.nan
+    return settle, steepest
+
+
 def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: float = 1.0,
                             f_lo: float = 1e-3, f_hi: float = 1e11, step: bool = True,
                             eigen=None, settle=None, r_source: float = 0.0,
@@ -577,37 +656,12 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
     differential, common_mode, broken = _sanitized(differential, common_mode)
     if r_source <= 0:
         coupling = None
-    g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta, r_source, coupling)
-    g_n, c_n = inverting_column(differential, common_mode)
-    tau = None
-    if r_source > 0:
-        tau = r_source * (input_capacitance(g_n, c_n) if coupling is None else coupling[0])
-    if inverting:
-        # The signal enters through the network at inn, the amplifier's inp held at the common mode:
-        # v(inn) = beta v(out) + (1 - beta) v(sig), so the drive is (1 - beta) times the inn column, or,
-        # behind the network's pole, the extra row's (1 - beta) (closed_loop_matrices). The poles are the
-        # same; the zeros (no feedforward through the input pair from inp) and the sign are not.
-        if r_source > 0:
-            g_p, c_p = np.zeros_like(g_p), np.zeros_like(c_p)
-            g_p[:, -1] = -(1.0 - beta)
-        else:
-            g_p, c_p = (1.0 - beta) * g_n, (1.0 - beta) * c_n
+    closed, g_n, c_n, tau = _closed_loop(differential, common_mode, beta, r_source, inverting, coupling)
+    out = closed.out
     with np.errstate(all="ignore"):
-        closed = _Modal(g, c, g_p, c_p, out)
-        finite = _finite_poles(closed.lam)
-        lam = np.where(finite, closed.lam, 1.0)
-        poles = np.where(finite, -1.0 / lam, 0.0)
-        # Re(lam) <= 0 is Re(s) >= 0: the marginal case counts against the design.
-        rhp = (finite & (closed.lam.real <= 1e-12 * np.abs(closed.lam))).sum(axis=1).astype(float)
-        stable = rhp == 0
-
-        weight = np.where(finite, np.abs(closed.r1 / lam - closed.r0), -1.0)
-        dominant = poles[np.arange(designs), np.argmax(weight, axis=1)]
+        finite, rhp, stable, dominant, probe = _closed_figures(closed)
         pole_hz = np.abs(dominant) / (2 * np.pi)
         damping = -dominant.real / np.abs(dominant)
-
-        # Probe the modal forms where they matter: at the dominant closed-loop pole's frequency.
-        probe = np.where(pole_hz > 0, pole_hz, 1.0)[:, None] * np.array([0.5, 1.0, 2.0])
         # Only the step response reads the closed loop's modal form away from its poles; the search's
         # figures (poles, residue weights, DC gain) do not need the check.
         wants_step = step or settle is not None
