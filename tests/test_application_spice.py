@@ -23,6 +23,8 @@ ngspice for settling and ngspice over model for slew: generic180 non-inverting 0
 and 0.93, SKY130 non-inverting 0.91 and 1.05. Each edge is settled at the operating point of the level it
 ends at (topologies/step_ends.py); before that the falling edges of the non-inverting studies, whose inputs
 then sit 0.25 V below the common mode and starve the pair's tail, settled up to 2.6x slower than predicted.
+A fourth study puts the single-stage cascodes on a light (1 MOhm) network: gain error, loop phase margin
+and slew hold there too (slew median 1.0); its settling is a strict expected failure (SETTLING_OPEN).
 """
 
 import math
@@ -44,7 +46,7 @@ from ampfront.topologies.process.techfile import load
 
 STUDY = """
 title = "Application check"
-topologies = ["two_stage_miller", "folded_cascode"]
+topologies = {topologies}
 objectives = ["power", "settling"]
 technology = "{technology}"
 
@@ -54,7 +56,7 @@ load_capacitance = "2 pF"
 closed_loop_gain = {gain}
 configuration = "{configuration}"
 max_gain_error = "{error}"
-feedback_resistance = "20 kOhm"
+feedback_resistance = "{network}"
 step = "{step}"
 settle_band = "0.1 %"
 max_settling_time = "2 us"
@@ -64,18 +66,24 @@ max_power = "500 uW"
 
 [search]
 population = 32
-generations = 15
+generations = {generations}
 seed = 3
 """
 # A gain of 2 with a 1 V output step slews (the pair's linear range is about 2 / (gm/ID) at the input, the
 # step 0.5 V there); the inverting x3 loop (beta 1/4) has a smaller input step and mostly settles linearly.
+# The 20 kOhm network is a load only a two-stage drives at 0.5 % gain error; the single-stage cascodes get
+# a 1 MOhm network of their own.
+TWO_STAGE = dict(topologies='["two_stage_miller", "folded_cascode"]', network="20 kOhm", generations=15)
+CASCODES = dict(topologies='["folded_cascode", "telescopic_cascode"]', network="1 MOhm", generations=40)
 CASES = {
     "generic180-non_inverting": dict(technology="generic180", gain=2, configuration="non_inverting",
-                                     error="0.5 %", step="1 V"),
+                                     error="0.5 %", step="1 V", **TWO_STAGE),
     "generic180-inverting": dict(technology="generic180", gain=3, configuration="inverting", error="0.5 %",
-                                 step="0.6 V"),
+                                 step="0.6 V", **TWO_STAGE),
     "sky130-non_inverting": dict(technology="sky130", gain=2, configuration="non_inverting", error="0.5 %",
-                                 step="1 V"),
+                                 step="1 V", **TWO_STAGE),
+    "generic180-cascodes": dict(technology="generic180", gain=2, configuration="non_inverting", error="0.5 %",
+                                step="0.6 V", **CASCODES),
 }
 PM_BOUND = {"generic180": 3.0, "sky130": 5.0}
 TEXTBOOK_RTOL = {"generic180": 0.05, "sky130": 0.15}
@@ -162,9 +170,22 @@ def test_loop_phase_margin_at_beta_matches_middlebrook_injection_in_ngspice(simu
     assert off.max() <= PM_BOUND[case["technology"]], off.to_list()
 
 
+# Where the two-phase method falls short, as a strict expected failure with what ngspice shows.
+SETTLING_OPEN = {
+    "generic180-cascodes": "measured median model/ngspice 0.77 (0.69-0.85 over 8 designs): a 0.6 V step "
+                           "overshoots by 22 mV (7 %) in ngspice where a 10 mV step does not, and the pair "
+                           "leaves full steering gradually; the linear phase here starts from rest after "
+                           "the slew instead of from the state the slew leaves (inn lagging, folding nodes "
+                           "displaced). Steps of 0.05 V and below agree within 1 %",
+}
+
+
 @pytest.mark.spice
-def test_settling_time_median_within_20_percent_of_the_transient(simulated):
+def test_settling_time_median_within_20_percent_of_the_transient(simulated, request):
     case, _, rows = simulated
+    name = next(k for k, v in CASES.items() if v == case)
+    if name in SETTLING_OPEN:
+        request.applymarker(pytest.mark.xfail(strict=True, reason=SETTLING_OPEN[name]))
     assert (rows[f"model_{M.loop_phase_margin_deg}"] >= 55).all()
     ratio = rows[f"model_{M.step_settling_s}"] / rows[f"spice_{M.step_settling_s}"]
     assert abs(np.median(ratio) - 1) <= 0.2, ratio.to_list()

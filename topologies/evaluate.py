@@ -7,7 +7,7 @@ from dataclasses import replace
 import numpy as np
 
 from .base import Build, Conditions, Topology
-from .catalog import is_headroom
+from .catalog import M, is_headroom
 from .errors import PluginError
 from .process.base import Technology
 from . import kernels, quarantine_kernels
@@ -147,11 +147,14 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
                 return (differential, small_signal(built, at, "common_mode", differential.block_singular),
                         input_coupling(built, differential.nodes) if r_noise > 0 else None)
 
+            # Only designs whose open loop works have stability figures (_stability); the rest read NaN. A loop
+            # unstable at the quiescent point never settles; only the stable ones are solved at the step's ends.
+            stable = stability["cl_stable"] == 1.0
             edges = step_edges(topology, x, tech, cond, build, recording.widths, circuit, reported, circuits,
-                               r_noise, reach)
-            # Only designs whose open loop works have stability figures (_stability); the rest read NaN.
-            working = ~np.isnan(stability["cl_stable"])
-            stability.update({k: np.where(working, v, np.nan) for k, v in edges.items()})
+                               r_noise, reach, np.flatnonzero(stable))
+            unstable = stability["cl_stable"] == 0.0
+            edges = {k: np.where(unstable, np.inf if k == M.step_settling_s else np.nan, v) for k, v in edges.items()}
+            stability.update(edges)
         cmrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_cm), 1e-30))
         psrr = 20 * np.log10(np.abs(loop.gain) / np.maximum(np.abs(a_dd), 1e-30))
     designs = len(build.supply_current)

@@ -82,3 +82,15 @@ class SameGeometry:
                               "than on the first")
         elements = [replace(e, value=n.value) for e, n in zip(built.elements, self._nominal.elements)]
         return replace(built, elements=elements)
+
+    def subset(self, rows: np.ndarray) -> "SameGeometry":
+        """The same for the designs at `rows` only (x must then be cut the same way)."""
+        designs = len(self._nominal.supply_current)
+
+        def cut(value):
+            return np.broadcast_to(value, (designs,))[rows] if np.ndim(value) else value
+
+        inner = self._topology.subset(rows) if isinstance(self._topology, SameGeometry) else self._topology
+        nominal = replace(self._nominal, supply_current=self._nominal.supply_current[rows],
+                          elements=[replace(e, value=cut(e.value)) for e in self._nominal.elements])
+        return SameGeometry(inner, [cut(w) for w in self._widths], nominal)

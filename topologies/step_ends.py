@@ -26,12 +26,13 @@ from typing import Callable
 import numpy as np
 
 from .base import Build, Conditions, Topology
+from .catalog import M
 from .geometry import SameGeometry
 from .process.base import Technology
 from .slewing import LoadedEdge
 from .stability import edge_settling
 
-EDGES = ((+1.0, "peak_source_a"), (-1.0, "peak_sink_a"))   # rising, falling: the device that drives each
+EDGES = ((+1.0, M.peak_source_a), (-1.0, M.peak_sink_a))   # rising, falling: the device that drives each
 
 
 def end_conditions(cond: Conditions, sign: float) -> Conditions:
@@ -46,22 +47,33 @@ def end_conditions(cond: Conditions, sign: float) -> Conditions:
 
 def step_edges(topology: Topology, x: dict[str, np.ndarray], tech: Technology, cond: Conditions, build: Build,
                widths: list[np.ndarray], quiescent, reported: dict[str, np.ndarray],
-               circuits: Callable, r_noise: float, reach) -> dict[str, np.ndarray]:
-    """step_settling_s and step_slope_v_per_s of the stated step (module docstring). `widths`: what the
-    quiescent build drew; `quiescent`: its differential circuit (for the output node's capacitance);
-    `circuits(build, cond)` gives (differential, common mode, input coupling) of a build."""
-    again = SameGeometry(topology, widths, build)
+               circuits: Callable, r_noise: float, reach, rows: np.ndarray) -> dict[str, np.ndarray]:
+    """step_settling_s and step_slope_v_per_s of the stated step (module docstring) for the designs at
+    `rows` (NaN elsewhere). `widths`: what the quiescent build drew; `quiescent`: its differential circuit
+    (for the output node's capacitance); `circuits(build, cond)` gives (differential, common mode, input
+    coupling) of a build."""
+    designs = len(build.supply_current)
+    figures = {M.step_settling_s: np.full(designs, np.nan), M.step_slope_v_per_s: np.full(designs, np.nan)}
+    if len(rows) == 0:
+        return figures
+    # Designs whose open loop does not work have no settling to speak of; solving only the rest keeps a
+    # settling study's search from paying two more DC solves for designs it throws away anyway.
+    again = SameGeometry(topology, widths, build).subset(rows)
+    part = {k: np.broadcast_to(v, (designs,))[rows] for k, v in x.items()}
     out = quiescent.nodes.index("out")
-    c_out = quiescent.C[:, out, out]
+    c_out = quiescent.C[rows, out, out]
     g_load = 1.0 / cond.r_load if np.isfinite(cond.r_load) else 0.0
+    reach = None if reach is None else np.broadcast_to(reach, (designs,))[rows]
     settles, slopes = [], []
     for sign, peak in EDGES:
         end = end_conditions(cond, sign)
-        differential, common, coupling = circuits(again.build(x, tech, end), end)
-        path = LoadedEdge(reported["slew_v_per_s"], reported[peak], c_out, g_load)
+        differential, common, coupling = circuits(again.build(part, tech, end), end)
+        path = LoadedEdge(reported[M.slew_v_per_s][rows], reported[peak][rows], c_out, g_load)
         settle, slope = edge_settling(differential, common, cond.beta, path, cond.step_v, cond.settle_band,
                                       reach, r_noise, cond.inverting, coupling)
         settles.append(settle)
         slopes.append(slope)
     # NaN on either edge (an end the model cannot solve) stays NaN: the step's figure is unknown.
-    return {"step_settling_s": np.maximum(*settles), "step_slope_v_per_s": np.minimum(*slopes)}
+    figures[M.step_settling_s][rows] = np.maximum(*settles)
+    figures[M.step_slope_v_per_s][rows] = np.minimum(*slopes)
+    return figures
