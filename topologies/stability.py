@@ -366,7 +366,14 @@ def _step(modal: _Modal, finite: np.ndarray, stable: np.ndarray, band=SETTLE_BAN
     lam = np.where(finite, modal.lam, 1.0)
     p = np.where(finite, -1.0 / lam, 0.0)
     c = np.where(finite, modal.r1 / lam - modal.r0, 0.0)
-    final = modal.r0.sum(axis=1).real
+    return settle_exponentials(p, c, modal.r0.sum(axis=1).real, finite, stable, band)
+
+
+def settle_exponentials(p: np.ndarray, c: np.ndarray, final: np.ndarray, finite: np.ndarray, stable: np.ndarray,
+                        band=SETTLE_BAND):
+    """Overshoot (%), settling time (s) into `band` of |final| and largest slope (1/s, per unit of final
+    value) of y(t) = final + sum_i c_i exp(p_i t), t >= 0, for the modes `finite` marks (`_step`'s
+    sampling and refinement; inf where not `stable`)."""
     scale = np.maximum(np.abs(final), 1e-300)
     rel = np.abs(c) / scale[:, None]
     significant = finite & (rel > NEGLIGIBLE_MODE)
