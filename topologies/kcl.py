@@ -9,13 +9,14 @@ from .base import Build
 EXTERNAL = {"vdd", "vss", "inp", "inn", "0"}
 
 
-def node_imbalance(build: Build) -> np.ndarray:
+def node_imbalance(build: Build, injected: dict | None = None) -> np.ndarray:
     """Largest |sum of currents into an internal node| per design, relative to the supply current.
 
     Device currents are the technology's, at the terminal voltages the topology reports; a fixed-point
-    iteration stopped short shows up here as charge piling up at a node.
+    iteration stopped short shows up here as charge piling up at a node. `injected`: currents pushed into
+    nodes from outside the Build (a load's at the output), node name -> A.
     """
-    into: dict[str, np.ndarray] = {}
+    into: dict[str, np.ndarray] = dict(injected or {})
     for d in build.devices:
         drain, _, source, _ = d.nodes
         sign = 1.0 if d.polarity == "n" else -1.0   # nMOS current runs drain -> source, pMOS source -> drain

@@ -26,8 +26,9 @@ from typing import Callable
 import numpy as np
 
 from .base import Build, Conditions, Topology
-from .catalog import M
+from .catalog import M, RULES
 from .geometry import SameGeometry
+from .kcl import node_imbalance
 from .process.base import Technology
 from .slewing import LoadedEdge
 from .stability import edge_settling
@@ -67,13 +68,33 @@ def step_edges(topology: Topology, x: dict[str, np.ndarray], tech: Technology, c
     settles, slopes = [], []
     for sign, peak in EDGES:
         end = end_conditions(cond, sign)
-        differential, common, coupling = circuits(again.build(part, tech, end), end)
+        built = again.build(part, tech, end)
+        differential, common, coupling = circuits(built, end)
         path = LoadedEdge(reported[M.slew_v_per_s][rows], reported[peak][rows], c_out, g_load)
         settle, slope = edge_settling(differential, common, cond.beta, path, cond.step_v, cond.settle_band,
                                       reach, r_noise, cond.inverting, coupling)
+        # An end whose DC point the topology's solver did not close (Kirchhoff at any node, the load's
+        # current at the output included) has no small-signal circuit to trust.
+        unsolved = ~(node_imbalance(built, {"out": end.i_out}) <= RULES["dc_solved"].value)
+        settle, slope = np.where(unsolved, np.nan, settle), np.where(unsolved, np.nan, slope)
         settles.append(settle)
         slopes.append(slope)
-    # NaN on either edge (an end the model cannot solve) stays NaN: the step's figure is unknown.
-    figures[M.step_settling_s][rows] = np.maximum(*settles)
+    settle = np.maximum(*settles)
+    # An end the output cannot reach (evaluate's reach: the linear swing, load line included), or, in the
+    # non-inverting configuration, an input level outside the pair's common-mode range where the end's DC
+    # point has no solution: the step does not settle there. Any other end the model cannot solve stays
+    # NaN, the step's figure unknown.
+    lost = np.isnan(settle) & _inputs_outside(cond, reported, rows)
+    if reach is not None:
+        lost |= ~np.asarray(reach, bool)
+    figures[M.step_settling_s][rows] = np.where(lost, np.inf, settle)
     figures[M.step_slope_v_per_s][rows] = np.minimum(*slopes)
     return figures
+
+
+def _inputs_outside(cond: Conditions, reported: dict[str, np.ndarray], rows: np.ndarray) -> np.ndarray:
+    """Designs whose input common-mode range misses the levels the non-inverting inputs step between."""
+    if cond.inverting:
+        return np.zeros(len(rows), bool)
+    swing = 0.5 * cond.beta * cond.step_v
+    return ((reported[M.cm_low_v][rows] > cond.v_cm - swing) | (reported[M.cm_high_v][rows] < cond.v_cm + swing))
