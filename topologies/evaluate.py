@@ -137,7 +137,8 @@ def evaluate(topology: Topology, x: dict[str, np.ndarray], tech: Technology, con
         # linear swing (typically the network's load current outgrowing the output's sink) is never reached
         # with the loop's gain, so that step does not settle there.
         reach = (cond.v_cm - 0.5 * cond.step_v >= out_low) & (cond.v_cm + 0.5 * cond.step_v <= out_high)
-        settle = (reported.get("slew_v_per_s"), cond.step_v, cond.settle_band, reach) if settles and not by_edge else None
+        quiescent_step = settles and not by_edge
+        settle = (reported.get("slew_v_per_s"), cond.step_v, cond.settle_band, reach) if quiescent_step else None
         # The network's pole at inn sees the input devices' gate row, each capacitance to the node it goes to.
         coupling = input_coupling(build, circuit.nodes) if r_noise > 0 else None
         stability = _stability(circuit, common, loop, cond.beta, step, settle, r_noise, cond.inverting, coupling)
