@@ -137,3 +137,12 @@ def test_a_step_the_pair_or_the_output_cannot_follow_does_not_settle():
         assert not np.isnan(settle[stable & outside]).any(), name
         assert (settle[stable & (metrics[M.out_low_v] > 0.6)] == np.inf).all(), name
         assert (stable & outside).sum() >= 5, name
+
+
+def test_the_benchmark_times_a_settling_study():
+    from ampfront.optimize.bench import _bench_settling
+    from ampfront.topologies.process.techfile import shipped
+
+    line = _bench_settling(shipped()["generic180"], 200, 1)
+    rate = float(line.split(": ")[1].split(" designs/s")[0].replace(",", ""))
+    assert rate > 0 and "both ends" in line
