@@ -51,3 +51,31 @@ def test_design_evaluates_alone_as_in_a_population(name):
     alone, _ = evaluate(topology, {k: v[5:6] for k, v in x.items()}, tech, DEMO_CONDITIONS)
     for key in ("gain_db", "gbw_hz", "power_w"):
         assert alone[key][0] == pytest.approx(together[key][5], rel=1e-12)
+
+
+@pytest.mark.parametrize("name", NAMES)
+def test_the_output_sits_where_the_conditions_hold_it(name):
+    """A stated step's ends build the same geometry with the output held off the common mode and a load's
+    current pushed into it (topologies/step_ends.py); Kirchhoff's law at every node, that current included,
+    must close there as it does at the quiescent point."""
+    from dataclasses import replace
+
+    from ampfront.topologies.geometry import Recording, SameGeometry
+    from ampfront.topologies.kcl import node_imbalance
+
+    tech = generic180()
+    topology = topologies.available()[name]
+    x = random_designs(topology, tech, 160, seed=5)
+    recording = Recording(tech)
+    with np.errstate(all="ignore"):
+        build = topology.build(x, recording, DEMO_CONDITIONS)
+        held = replace(DEMO_CONDITIONS, v_out=1.0, i_out=-0.1 / 200e3)
+        moved = SameGeometry(topology, recording.widths, build).build(x, tech, held)
+    # Where the quiescent point closes, the linear swing reaches the held level with room to spare and the
+    # output can drive the load's current several times over.
+    peak = np.minimum(build.metrics["peak_source_a"], build.metrics["peak_sink_a"])
+    quiescent = ((node_imbalance(build) <= 1e-3) & (build.metrics["out_high_v"] > 1.1)
+                 & (peak > 4 * abs(held.i_out)))
+    closes = node_imbalance(moved, {"out": held.i_out}) <= 1e-3
+    assert quiescent.sum() >= 8
+    assert (closes & quiescent).sum() >= 0.8 * quiescent.sum(), (closes & quiescent).sum()
