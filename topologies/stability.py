@@ -601,10 +601,11 @@ def closed_loop_poles(differential: Circuit, common_mode: Circuit, beta: float =
 
 def _closed_loop(differential: Circuit, common_mode: Circuit, beta: float, r_source: float, inverting: bool,
                  coupling, guarded: bool = False):
-    """(closed-loop modal form driven where the configuration's signal enters, g_n, c_n, tau) of circuits
+    """(closed-loop modal form driven where the configuration's signal enters, g_n, c_n, tau, singular) of circuits
     already sanitized; tau is the network pole's time constant per design (None without a network).
-    `guarded`: designs whose closed-loop G' is singular get a harmless stand-in (returned as a fifth item,
-    a mask) instead of stopping LAPACK for all; the search's own circuits were screened before."""
+    `guarded`: designs whose closed-loop G' is singular get a harmless stand-in (marked in the fifth item,
+    a mask, all False unguarded) instead of stopping LAPACK for all; the search's own circuits were
+    screened before."""
     g, c, g_p, c_p, out = closed_loop_matrices(differential, common_mode, beta, r_source, coupling)
     singular = np.zeros(len(g), bool)
     if guarded:
@@ -630,7 +631,7 @@ def _closed_loop(differential: Circuit, common_mode: Circuit, beta: float, r_sou
         g_p, c_p = np.where(singular[:, None], 0.0, g_p), np.where(singular[:, None], 0.0, c_p)
     with np.errstate(all="ignore"):
         closed = _Modal(g, c, g_p, c_p, out)
-    return (closed, g_n, c_n, tau, singular) if guarded else (closed, g_n, c_n, tau)
+    return closed, g_n, c_n, tau, singular
 
 
 def _closed_figures(closed: _Modal):
@@ -688,7 +689,7 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
     differential, common_mode, broken = _sanitized(differential, common_mode)
     if r_source <= 0:
         coupling = None
-    closed, g_n, c_n, tau = _closed_loop(differential, common_mode, beta, r_source, inverting, coupling)
+    closed, g_n, c_n, tau, _ = _closed_loop(differential, common_mode, beta, r_source, inverting, coupling)
     out = closed.out
     with np.errstate(all="ignore"):
         finite, rhp, stable, dominant, probe = _closed_figures(closed)
