@@ -125,7 +125,7 @@ def converge(problem, population: int, budget: int, seed: int,
                 break
         if spent + population > budget:
             break
-        children = op.offspring(U, rank, distance, population, rng)
+        children = op.offspring(U, F, rank, distance, population, rng)
         Fc, Vc = _evaluate(problem, children)
         spent += len(children)
         merged_U, merged_F, merged_V = np.vstack([U, children]), np.vstack([F, Fc]), np.vstack([V, Vc])
