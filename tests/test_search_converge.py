@@ -42,11 +42,8 @@ def test_constrained_fronts_are_reached(name, igd):
     assert IGD(problem.pareto_front())(found.F) < igd
 
 
-@pytest.mark.parametrize("name, share", [("zdt1", 0.97), ("bnh", 0.99)])
-def test_not_worse_than_pymoo_nsga2_at_the_same_evaluations(name, share):
-    """ZDT1's thirty variables act alone and its front lies on the box's face, simulated binary crossover's
-    best case: our differential step (chosen on circuit fronts, README Convergence) gives up 2.6 % there
-    (measured, seeds 1-3)."""
+@pytest.mark.parametrize("name", ["zdt1", "bnh"])
+def test_not_worse_than_pymoo_nsga2_at_the_same_evaluations(name):
     problem = get_problem(name)
     ref = np.max(problem.pareto_front(), axis=0) * 1.1
     hv = HV(ref_point=ref)
@@ -56,7 +53,7 @@ def test_not_worse_than_pymoo_nsga2_at_the_same_evaluations(name, share):
         ours.append(hv(found.F))
         pymoo_run = minimize(problem, NSGA2(pop_size=100), ("n_eval", found.evaluations), seed=seed, verbose=False)
         theirs.append(hv(pymoo_run.opt.get("F")))
-    assert np.median(ours) >= share * np.median(theirs)
+    assert np.median(ours) >= 0.99 * np.median(theirs)
 
 
 def test_same_seed_same_front_other_seed_other_front():
@@ -140,20 +137,24 @@ def test_neighbourhoods_are_the_nearest_on_the_objectives_and_failed_designs_sit
     assert 4 not in near[:4]
 
 
-def test_children_bred_within_a_neighbourhood_stay_near_their_base(monkeypatch):
-    """Neighbourhood mating: with every child bred from its base's nearest designs on the objectives, children
-    land nearer an existing design than when differences are drawn from anywhere on the front."""
+def test_neighbourhood_steps_follow_the_fronts_shape_where_crossover_leaves_it():
+    """A front along u0 + u1 = 1 (two variables that trade against each other, as gm/ID and current do):
+    neighbourhood steps breed children along it; simulated binary crossover, which swaps variables between
+    distant parents, scatters a quarter of its children a tenth of the box or more off it (measured: 75th
+    percentile 0.007-0.010 against 0.138-0.157 over seeds 3-5)."""
     rng = np.random.default_rng(3)
     t = rng.random(200)
     U = np.column_stack([t, 1 - t, rng.random(200) * 0.05])
     F = np.column_stack([t, 1 - t])
     rank, distance = np.zeros(200), np.ones(200)
+    steps = op.neighbourhood_steps(U, F, rank, distance, 2000, rng)
+    parents = op.tournament(rank, distance, 2000, rng)
+    crossed = np.vstack(op.crossover(U[parents[:1000]], U[parents[1000:]], rng))
+    assert steps.shape == (2000, 3) and ((steps >= 0) & (steps <= 1)).all()
 
-    def nearest(share):
-        monkeypatch.setattr(op, "NEIGHBOURHOOD_SHARE", share)
-        kids = op.offspring(U, F, rank, distance, 2000, np.random.default_rng(4))
-        return np.median(np.sqrt(((kids[:, None, :] - U[None, :, :]) ** 2).sum(axis=2)).min(axis=1))
-    assert nearest(1.0) < 0.67 * nearest(0.0)      # measured 0.025 against 0.048
+    def off_front(kids):
+        return np.percentile(np.abs(kids[:, 0] + kids[:, 1] - 1), 75)
+    assert off_front(steps) < 0.2 * off_front(crossed)
 
 
 TINY = """
