@@ -135,6 +135,14 @@ def test_neighbourhoods_are_the_nearest_on_the_objectives_and_failed_designs_sit
     near = op._neighbours(F, 2)
     assert list(near[0]) == [1, 2] and list(near[3]) == [2, 1]
     assert 4 not in near[:4]
+    # Rows taken in blocks give what one whole distance matrix gives, ties (duplicate designs) included.
+    rng = np.random.default_rng(0)
+    F = rng.random((600, 3))
+    F[100:130] = F[5]
+    F[0], F[1] = 0.0, 1.0                          # its extent is the unit cube: scaling leaves it as it is
+    whole = ((F[:, None, :] - F[None, :, :]) ** 2).sum(axis=2)
+    np.fill_diagonal(whole, np.inf)
+    assert np.array_equal(op._neighbours(F, 20), np.argsort(whole, axis=1, kind="stable")[:, :20])
 
 
 def test_neighbourhood_steps_follow_the_fronts_shape_where_crossover_leaves_it():
