@@ -106,7 +106,7 @@ def converge(problem, population: int, budget: int, seed: int,
             progress(*history[-1])
         watch.append((bool(len(archive_F)), score))
         if generation - start >= max(MIN_GENERATIONS, PATIENCE) and len(watch) > PATIENCE and _stalled(watch):
-            near_miss = not len(archive_F) and tries < RESTARTS and cv.min() < NEAR_MISS
+            near_miss = not len(archive_F) and tries < RESTARTS and bool(cv.min() < NEAR_MISS)
             # Stalled short of the spec: start again from fresh random designs beside the best tenth (one basin
             # of near misses is not always next to the thin region that meets the spec; measured on the
             # sensor-readout telescopic cascode, two seeds of four stalled 1 % short of its swing).
@@ -115,10 +115,10 @@ def converge(problem, population: int, budget: int, seed: int,
             # telescopic cascode, seed 3: hypervolume 0.0005, where the other seeds reach 0.004-0.006, and
             # 0.0059 after this); a second search from scratch finds another pocket or adds to the front, at
             # 10-40 % more evaluations where the first had converged (two-stage, seeds 1-3).
-            explore = len(archive_F) and not explored and spent + MIN_GENERATIONS * population <= budget
+            explore = bool(len(archive_F)) and not explored and spent + MIN_GENERATIONS * population <= budget
             if near_miss or explore:
-                tries += bool(near_miss)
-                explored = explored or bool(explore)
+                tries += near_miss
+                explored |= explore
                 keep = np.argsort(op.ranks(F, V), kind="stable")[:population // 10] if near_miss else []
                 fresh = rng.random((population - len(keep), n))
                 Fn, Vn = _evaluate(problem, fresh)
