@@ -92,7 +92,7 @@ def engine_from(path: Path | None, refine: int = 0):
         return lambda study, problem, long, seed, window: run_search(
             problem, study.population, study.generations and study.generations * long, seed, refine_steps=refine,
             budget=study.budget and study.budget * long, hypervolume=window.hypervolume,
-            front_designs=study.front_designs, stall=long == 1)
+            front_designs=study.front_designs, stall=long == 1, contributions=window.thinning)
     spec = importlib.util.spec_from_file_location("engine_under_test", path)
     module = importlib.util.module_from_spec(spec)
     sys.modules[spec.name] = module      # dataclasses look their module up while the class is made

@@ -84,9 +84,9 @@ class SearchResult:
 def run_search(problem: Problem, population: int, generations: int | None, seed: int,
                progress: Progress | None = None, refine_steps: int = 0, budget: int | None = None,
                hypervolume: Callable[[np.ndarray], float] | None = None,
-               front_designs: int | None = None, stall: bool = True) -> SearchResult:
+               front_designs: int | None = None, stall: bool = True, contributions=None) -> SearchResult:
     """generations None: the converging search, up to `budget` evaluations, its archive thinned to
-    `front_designs`; otherwise NSGA-II (or III) for `generations`. Then, when refine_steps > 0 and the front is
+    `front_designs` (by hypervolume `contributions` when given, else crowding); otherwise NSGA-II (or III) for `generations`. Then, when refine_steps > 0 and the front is
     feasible, the trust-region refinement of its ends and levels (search/refine.py). Reproducible by seed."""
     if generations is None:
         found = converge(problem, population, budget, seed, hypervolume, progress, stall)
@@ -97,7 +97,7 @@ def run_search(problem: Problem, population: int, generations: int | None, seed:
             keep = operators.non_dominated(F)
             X, F, evaluations = X[keep], F[keep], evaluations + ends.evaluations
             if front_designs and len(F) > front_designs:
-                keep = operators.thin(F, front_designs)
+                keep = operators.thin(F, front_designs, contributions)
                 X, F = X[keep], F[keep]
         if progress and found.history:
             # The bar ends on the front as written (thinned, ends polished), the figure the run then prints.

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import moocore
 import numpy as np
 from pymoo.indicators.hv import HV
 
@@ -20,6 +21,8 @@ from ampfront.topologies.catalog import M, OBJECTIVES
 # How far the ideal end sits from the reference end, in the searched space: decades for log objectives.
 DECADES = 3.0
 SPAN = {M.gain_db: 40.0, M.phase_margin_deg: 30.0}
+# Most objectives whose hypervolume contributions the front's thinning computes exactly.
+EXACT_CONTRIBUTIONS = 3
 # Reference levels for an objective the study does not bound (SI; power scales with the supply).
 OPEN = {M.power_w: lambda vdd: vdd * 10e-3, M.gbw_hz: lambda vdd: 1e6, M.gain_db: lambda vdd: 40.0,
         M.phase_margin_deg: lambda vdd: 45.0, M.area_m2: lambda vdd: 0.1e-6}
@@ -41,6 +44,19 @@ class Window:
         if not inside.any():
             return 0.0
         return float(HV(ref_point=np.ones(F.shape[1]))(scaled[inside]))
+
+    def contributions(self, F: np.ndarray) -> np.ndarray:
+        """Each row's exclusive hypervolume up to the window's reference corner: what the front loses without
+        it. Not clipped at the ideal end, so designs past it (a cascode's 120 dB against a 110 dB end) keep
+        their worth among themselves instead of all reading zero."""
+        scaled = np.minimum((F - self.ideal) / (self.reference - self.ideal), 1.0)
+        return moocore.hv_contributions(scaled, ref=np.ones(F.shape[1]))
+
+    @property
+    def thinning(self):
+        """`contributions` where the exact figures are cheap, else None (the front is thinned by crowding):
+        measured on 1,600 designs, 0.7 ms in three objectives, 4.5 s in four, 42 s in five."""
+        return self.contributions if len(self.objectives) <= EXACT_CONTRIBUTIONS else None
 
     def record(self) -> dict:
         return {name: {"reference": self.levels[name][0], "from_spec": self.levels[name][1],

@@ -59,16 +59,17 @@ def misses(problem: DesignProblem, metrics: dict[str, np.ndarray], row: int) -> 
 def search_topology(study: Study, tech, name: str, progress: Progress | None) -> Outcome:
     topology = topologies.available()[name]
     problem = CountingProblem(topology, tech, study)
+    window = window_for(study)
     result = run_search(problem, study.population, study.generations, study.seed, progress, study.refine,
-                        budget=study.budget, hypervolume=window_for(study).hypervolume,
-                        front_designs=study.front_designs)
+                        budget=study.budget, hypervolume=window.hypervolume, front_designs=study.front_designs,
+                        contributions=window.thinning)
     x = problem.decode(result.X)
     metrics, build, corners = evaluate_study(topology, x, tech, study, problem.corners, step=True)
     names = [f"{topology.prefix}_{i + 1:03d}" for i in range(len(result.X))]
     table = front_table(name, names, metrics, build, x, study.constraints, corners)
     if result.feasible:
         return TopologyFront(name, table, build, result.evaluations, result.history, piles(name, problem, result.X),
-                             corners, problem.rejections(), window_for(study).hypervolume(result.F), result.refined,
+                             corners, problem.rejections(), window.hypervolume(result.F), result.refined,
                              result.stopped)
     # The closest design: least total normalized violation (the search's own measure).
     violations = np.column_stack([np.nan_to_num(np.maximum(c.violation(metrics), 0), nan=1e9)
