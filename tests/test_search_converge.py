@@ -143,6 +143,9 @@ def test_neighbourhoods_are_the_nearest_on_the_objectives_and_failed_designs_sit
     whole = ((F[:, None, :] - F[None, :, :]) ** 2).sum(axis=2)
     np.fill_diagonal(whole, np.inf)
     assert np.array_equal(op._neighbours(F, 20), np.argsort(whole, axis=1, kind="stable")[:, :20])
+    # Asked for some rows only (the bases of a generation's steps), the same rows of the whole answer.
+    rows = np.array([599, 5, 101, 0, 300])
+    assert np.array_equal(op._neighbours(F, 20, rows), op._neighbours(F, 20)[rows])
 
 
 def test_neighbourhood_steps_follow_the_fronts_shape_where_crossover_leaves_it():

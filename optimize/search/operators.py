@@ -183,9 +183,11 @@ def neighbourhood_steps(U: np.ndarray, F: np.ndarray, rank: np.ndarray, distance
     if count <= 0:
         return np.empty((0, d))
     base = tournament(rank, distance, count, rng)
-    near = _neighbours(F, min(NEIGHBOURS, n - 1)) if n > 1 else np.zeros((n, 1), int)
+    # Neighbourhoods of the bases alone: a base's neighbours are the same whoever else is asked about.
+    bases, slot = np.unique(base, return_inverse=True)
+    near = _neighbours(F, min(NEIGHBOURS, n - 1), bases) if n > 1 else np.zeros((n, 1), int)
     pick = rng.integers(0, near.shape[1], (count, 2))
-    trial = U[base] + DE_WEIGHT * (U[near[base, pick[:, 0]]] - U[near[base, pick[:, 1]]])
+    trial = U[base] + DE_WEIGHT * (U[near[slot, pick[:, 0]]] - U[near[slot, pick[:, 1]]])
     rate = np.where(rng.random((count, 1)) < 0.5, DE_CROSSOVER, DE_CROSSOVER_SEPARABLE)
     take = rng.random((count, d)) < rate
     take[np.arange(count), rng.integers(0, d, count)] = True      # at least one variable from the trial
@@ -195,24 +197,25 @@ def neighbourhood_steps(U: np.ndarray, F: np.ndarray, rank: np.ndarray, distance
     return np.clip(np.where(take, trial, U[base]), 0.0, 1.0)
 
 
-def _neighbours(F: np.ndarray, k: int) -> np.ndarray:
-    """(n, k) indices of each design's k nearest others on the objectives, each scaled to the population's
-    extent; a design whose objectives are not finite (a failed evaluation) sits far from every other."""
+def _neighbours(F: np.ndarray, k: int, rows: np.ndarray | None = None) -> np.ndarray:
+    """(len(rows), k) indices of each row's k nearest other designs on the objectives (every design's when
+    `rows` is None), each objective scaled to the population's extent; a design whose objectives are not
+    finite (a failed evaluation) sits far from every other."""
     finite = np.isfinite(F)
     low = np.where(finite, F, np.inf).min(axis=0)
     high = np.where(finite, F, -np.inf).max(axis=0)
     span = np.where(high > low, high - low, 1.0)
     Z = np.where(finite, (F - np.where(np.isfinite(low), low, 0.0)) / span, 1e3)
-    n = len(Z)
-    near = np.empty((n, k), int)
+    rows = np.arange(len(Z)) if rows is None else np.asarray(rows, int)
+    near = np.empty((len(rows), k), int)
     # In blocks of rows, so a population of tens of thousands needs no (n, n, objectives) array.
-    for start in range(0, n, NEIGHBOUR_BLOCK):
-        rows = slice(start, min(start + NEIGHBOUR_BLOCK, n))
-        D = np.zeros((rows.stop - start, n))
+    for start in range(0, len(rows), NEIGHBOUR_BLOCK):
+        block = rows[start:start + NEIGHBOUR_BLOCK]
+        D = np.zeros((len(block), len(Z)))
         for j in range(Z.shape[1]):
-            D += (Z[rows, None, j] - Z[None, :, j]) ** 2
-        D[np.arange(rows.stop - start), np.arange(start, rows.stop)] = np.inf
-        near[rows] = np.argsort(D, axis=1, kind="stable")[:, :k]
+            D += (Z[block, None, j] - Z[None, :, j]) ** 2
+        D[np.arange(len(block)), block] = np.inf
+        near[start:start + len(block)] = np.argsort(D, axis=1, kind="stable")[:, :k]
     return near
 
 
