@@ -23,7 +23,8 @@ def de_end(problem, X: np.ndarray, F: np.ndarray, objective: int, seed: int) -> 
         nonlocal spent
         out = problem.evaluate(Xt.T, return_as_dictionary=True)
         spent += Xt.shape[1]
-        missed = np.maximum(out["G"], 0).sum(axis=1)
+        g = out.get("G")      # a problem without constraints has none
+        missed = np.maximum(g, 0).sum(axis=1) if g is not None and g.size else np.zeros(Xt.shape[1])
         return np.where(missed <= 0, out["F"][:, objective], _MISSED + missed)
 
     best = X[np.argsort(F[:, objective], kind="stable")[:SEEDED]]

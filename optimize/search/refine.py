@@ -54,22 +54,30 @@ def moving_variables(problem) -> np.ndarray:
     return np.array([v.unit != "m" for v in variables])
 
 
-def refine(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int = 1) -> Refined:
-    """X, F: the genetic search's feasible front (search space, minimized objectives)."""
-    m = F.shape[1]
-    moving = moving_variables(problem)
-    cells = length_cells(problem, moving)
-    scale = np.maximum(np.ptp(F, axis=0), 1e-3)
-    # An end is a single-objective problem with local optima of its own: differential evolution from the
-    # front's best, and the front's best themselves, all polished.
+def search_ends(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int) -> Refined:
+    """Each objective's end of the front X, F: an end is a single-objective problem with local optima of its
+    own, so differential evolution from the front's best at it, and the front's best themselves, all
+    polished. The designs reached, not yet merged with X."""
     found, evaluations = [], 0
-    for i in range(m):
+    for i in range(F.shape[1]):
         x, spent = de_end(problem, X, F, i, seed)
         evaluations += spent
         found.append(np.atleast_2d(x) if x is not None else np.empty((0, problem.n_var)))
     ends = polish_ends(problem, X, F, steps, found)
-    pool_X, pool_F = np.vstack([X, ends.X]), np.vstack([F, ends.F])
-    evaluations += ends.evaluations
+    return Refined(ends.X, ends.F, evaluations + ends.evaluations)
+
+
+def refine(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int = 1, ends: bool = True) -> Refined:
+    """X, F: the genetic search's feasible front (search space, minimized objectives). `ends` False: the
+    front's ends were searched already (the converging search does), only the levels run."""
+    m = F.shape[1]
+    moving = moving_variables(problem)
+    cells = length_cells(problem, moving)
+    scale = np.maximum(np.ptp(F, axis=0), 1e-3)
+    pool_X, pool_F, evaluations = X, F, 0
+    if ends:
+        found = search_ends(problem, X, F, steps, seed)
+        pool_X, pool_F, evaluations = np.vstack([X, found.X]), np.vstack([F, found.F]), found.evaluations
     if m > 1:
         levels = _levels(pool_F)
         start = _level_starts(pool_F, levels, scale)
