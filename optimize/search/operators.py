@@ -236,8 +236,8 @@ def thin(F: np.ndarray, count: int, contributions=None) -> np.ndarray:
     """Indices of `count` rows of a non-dominated set F, each objective's ends always kept. Without
     `contributions`, the most crowded go a few at a time (crowding recomputed between removals). With it (a
     function of F giving each row's exclusive hypervolume), the least contributing go, crowding breaking
-    ties (designs clipped at the window's ideal corner add nothing alone): the kept front then holds as much
-    of the hypervolume as thinning can, where crowding alone spends its designs on flat stretches."""
+    ties (designs beyond the window's reference corner add nothing): the kept front then holds as much of the
+    hypervolume as thinning can, where crowding alone spends its designs on flat stretches."""
     keep = np.arange(len(F))
     while len(keep) > count:
         distance = crowding(F[keep], np.zeros(len(keep)))
