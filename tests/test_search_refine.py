@@ -86,6 +86,23 @@ def test_default_search_reaches_scipy_des_least_power_at_its_end_on_every_seed()
         assert least_power(found.F, study.objectives, LEVELS[0]) <= 1.01 * target
 
 
+def test_a_small_budget_shortens_the_ends_search():
+    """The ends' differential evolution spends at most ends.END_SHARE of a converging search's budget; at the
+    default budget every end of up to three objectives gets all its generations."""
+    from ampfront.optimize.search.ends import END_SHARE, FRESH, GENERATIONS, SEEDED
+    from ampfront.optimize.search.refine import end_generations
+
+    assert end_generations(100_000, 3) == GENERATIONS and end_generations(None, 5) == GENERATIONS
+    for budget, objectives in ((4_000, 2), (20_000, 3), (100_000, 5)):
+        generations = end_generations(budget, objectives)
+        assert generations < GENERATIONS
+        assert objectives * generations * (SEEDED + FRESH) <= END_SHARE * budget
+    problem = get_problem("bnh")
+    quick = run_search(problem, 40, None, 3, budget=4_000)
+    # Genetic search within its budget, ends within their share, and the polish's few hundred.
+    assert quick.evaluations <= 4_000 + 40 + END_SHARE * 4_000 + 2 * (SEEDED + FRESH) + 2_000
+
+
 SMALL_REFINED = """
 title = "Refined two-stage"
 topologies = ["two_stage_miller"]

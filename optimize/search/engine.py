@@ -96,7 +96,7 @@ def run_search(problem: Problem, population: int, generations: int | None, seed:
         found = converge(problem, population, budget, seed, hypervolume, progress, stall)
         X, F, evaluations = found.X, found.F, found.evaluations
         if found.feasible:
-            ends = search_ends(problem, X, F, END_STEPS, seed)
+            ends = search_ends(problem, X, F, END_STEPS, seed, budget)
             X, F = np.vstack([X, ends.X]), np.vstack([F, ends.F])
             keep = operators.non_dominated(F)
             X, F, evaluations = X[keep], F[keep], evaluations + ends.evaluations

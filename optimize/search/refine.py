@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 from pymoo.util.nds.non_dominated_sorting import NonDominatedSorting
 
-from ampfront.optimize.search.ends import de_end
+from ampfront.optimize.search.ends import END_SHARE, FRESH, GENERATIONS, SEEDED, de_end
 from ampfront.optimize.search.polish import polish
 
 LEVELS = 64            # epsilon-constraint runs over the front
@@ -54,13 +54,22 @@ def moving_variables(problem) -> np.ndarray:
     return np.array([v.unit != "m" for v in variables])
 
 
-def search_ends(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int) -> Refined:
+def end_generations(budget: int | None, objectives: int) -> int:
+    """Differential-evolution generations for each objective's end: ends.GENERATIONS, fewer where the ends
+    together would spend more than END_SHARE of a search's `budget` (a study that asks for a quick run)."""
+    if budget is None:
+        return GENERATIONS
+    return int(min(GENERATIONS, END_SHARE * budget // (objectives * (SEEDED + FRESH))))
+
+
+def search_ends(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int, budget: int | None = None) -> Refined:
     """Each objective's end of the front X, F: an end is a single-objective problem with local optima of its
-    own, so differential evolution from the front's best at it, and the front's best themselves, all
-    polished. The designs reached, not yet merged with X."""
+    own, so differential evolution from the front's best at it (as `end_generations` allows; none below
+    one), and the front's best themselves, all polished. The designs reached, not yet merged with X."""
     found, evaluations = [], 0
-    for i in range(F.shape[1]):
-        x, spent = de_end(problem, X, F, i, seed)
+    generations = end_generations(budget, F.shape[1])
+    for i in range(F.shape[1] if generations >= 1 else 0):
+        x, spent = de_end(problem, X, F, i, seed, generations)
         evaluations += spent
         found.append(np.atleast_2d(x) if x is not None else np.empty((0, problem.n_var)))
     ends = polish_ends(problem, X, F, steps, found)

@@ -16,6 +16,7 @@ from ampfront.topologies.application import CONFIGURATIONS, feedback_factor
 from ampfront.topologies.base import Conditions
 from ampfront.topologies.catalog import BOUNDS, CONDITIONS, DEFAULT_SATURATION_MARGIN, INPUT_CM, OBJECTIVES, OPTIONAL_RULES, RULES
 
+from ampfront.optimize.search.ends import END_SHARE
 from ampfront.topologies.errors import InputError
 from ampfront.topologies.schema import Field, check_keys, parse_toml, read_table, read_toml, suggest
 from ampfront.topologies.units import eng
@@ -34,7 +35,8 @@ SEARCH_SCHEMA = {"population": Field("int"), "generations": Field("int"), "seed"
 # Search sizes a 24 GB, 2-core machine finishes; beyond them a study is a typo, not a plan. NSGA-II needs a
 # handful of parents; numpy seeds are unsigned 32-bit. `refine`: trust-region steps of the refinement after
 # the genetic search (search/refine.py), 0 for none; past a few hundred it has long converged. `budget`: the
-# converging genetic search's most evaluations per topology (the polish of the ends comes on top);
+# converging genetic search's most evaluations per topology (its ends' search comes on top, at most
+# ends.END_SHARE of it, and their polish);
 # `front_designs`: how many designs of its archive a topology's front keeps.
 SEARCH_LIMITS = {"population": (4, 100_000), "generations": (1, 100_000), "seed": (0, 2**32 - 1),
                  "refine": (0, 1_000), "budget": (1_000, 100_000_000), "front_designs": (2, 10_000)}
@@ -105,7 +107,8 @@ class Study:
             label = f"NSGA-II, {self.population} x {self.generations} generations"
         else:
             label = (f"converging NSGA-II, population {self.population}, at most {self.budget:,} evaluations "
-                     f"a topology, fronts of up to {self.front_designs} designs")
+                     f"a topology and up to {END_SHARE:.0%} more searching its ends, fronts of up to "
+                     f"{self.front_designs} designs")
         return label + (f", then {self.refine} refinement steps" if self.refine else "")
 
 
