@@ -56,10 +56,11 @@ def moving_variables(problem) -> np.ndarray:
 
 def end_generations(budget: int | None, objectives: int) -> int:
     """Differential-evolution generations for each objective's end: ends.GENERATIONS, fewer where the ends
-    together would spend more than END_SHARE of a search's `budget` (a study that asks for a quick run)."""
+    together would spend more than END_SHARE of a search's `budget` (a study that asks for a quick run). A
+    run evaluates its first population too, one generation more than it breeds."""
     if budget is None:
         return GENERATIONS
-    return int(min(GENERATIONS, END_SHARE * budget // (objectives * (SEEDED + FRESH))))
+    return int(max(0, min(GENERATIONS, END_SHARE * budget // (objectives * (SEEDED + FRESH)) - 1)))
 
 
 def search_ends(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int, budget: int | None = None) -> Refined:
