@@ -65,8 +65,9 @@ def end_generations(budget: int | None, objectives: int) -> int:
 
 def search_ends(problem, X: np.ndarray, F: np.ndarray, steps: int, seed: int, budget: int | None = None) -> Refined:
     """Each objective's end of the front X, F: an end is a single-objective problem with local optima of its
-    own, so differential evolution from the front's best at it (as `end_generations` allows; none below
-    one), and the front's best themselves, all polished. The designs reached, not yet merged with X."""
+    own, so differential evolution from the front's best at it (as many generations as `end_generations`
+    allows; none when the budget leaves not even one), and the front's best themselves, all polished. The
+    designs reached, not yet merged with X."""
     found, evaluations = [], 0
     generations = end_generations(budget, F.shape[1])
     for i in range(F.shape[1] if generations >= 1 else 0):
