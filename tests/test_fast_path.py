@@ -24,7 +24,7 @@ METRICS = ("gain_db", "gbw_hz", "phase_margin_deg", "gain_margin_db", "rhp_poles
            "output_resistance_ohm", "slew_v_per_us", "swing_v", "sat_min_v", "dc_residual",
            # The loop closed at beta (topologies/stability.py, compiled in stability_kernels.py).
            "cl_rhp_poles", "cl_stable", "cl_pole_hz", "cl_damping", "loop_crossover_hz", "loop_phase_margin_deg",
-           "loop_phase_min_deg", "conditionally_stable", "gain_error")
+           "loop_phase_min_deg", "loop_gain_margin_db", "conditionally_stable", "gain_error")
 
 
 def _same(fast, ref, rtol):
@@ -156,8 +156,8 @@ def test_table_kernels_match_the_reference(polarity):
 
 @pytest.mark.parametrize("modes", [2, 5])
 def test_loop_reading_matches_the_reference_on_hard_responses(modes):
-    """The return ratio's reading (crossover, margin, lowest phase above unity, crossings left of -1) on
-    random pole sets whose loop gain crosses unity and -180 deg several times, with a network pole."""
+    """The return ratio's reading (crossover, margin, lowest phase above unity, crossings left of -1, gain
+    margin) on random pole sets whose loop gain crosses unity and -180 deg several times, with a network pole."""
     from ampfront.topologies import stability as st
 
     modal = _synthetic_modal(3000, modes, seed=10 + modes)
@@ -174,7 +174,8 @@ def test_loop_reading_matches_the_reference_on_hard_responses(modes):
     with np.errstate(all="ignore"):
         fast = st._phase_reading_compiled(modal, beta, tau, t0, 1e-3, 1e11)
     assert 100 < ref[3].sum() < 2900 and np.isfinite(ref[1]).sum() > 100
-    for f, r in zip(fast[:3], ref[:3]):
+    assert 100 < np.isfinite(ref[4]).sum() < 2900
+    for f, r in zip(fast[:3] + fast[4:], ref[:3] + ref[4:]):
         _same(f, r, 1e-9)
     np.testing.assert_array_equal(fast[3], ref[3])
 

@@ -20,14 +20,21 @@ from ampfront.topologies.process.techfile import load, shipped
 from .helpers import DEMO_CONDITIONS, random_designs
 
 
-def _dense_reading(t):
-    """(lowest phase where |T| > 1, deg; crossings of odd multiples of -180 deg at |T| > 1) on a dense row."""
+def _dense_reading(t, gain_margin=False):
+    """(lowest phase where |T| > 1, deg; crossings of odd multiples of -180 deg at |T| > 1) on a dense row,
+    and with `gain_margin` the largest |T| at any such crossing in dB below unity."""
     phase = np.degrees(np.unwrap(np.angle(t)))
     phase -= 360 * np.round(phase[0] / 360)
     above = np.abs(t) > 1
     branch = np.floor((phase + 180) / 360)
     step = np.flatnonzero(np.diff(branch) != 0)
-    return phase[above].min(), int((np.abs(t[step]) > 1).sum())
+    reading = phase[above].min(), int((np.abs(t[step]) > 1).sum())
+    if not gain_margin:
+        return reading
+    # The crossing lies between two dense points: its margin between theirs, for the crossing nearest -1.
+    ends = -20 * np.log10(np.abs(np.stack([t[step], t[step + 1]])))
+    worst = np.argmin(ends.min(axis=0))
+    return reading + (tuple(np.sort(ends[:, worst])),)
 
 
 def test_a_late_resonance_above_unity_is_not_conditional_stability():
@@ -42,7 +49,7 @@ def test_a_late_resonance_above_unity_is_not_conditional_stability():
         g_n, c_n = st.inverting_column(d, c)
         modal, _ = st._loop_gain(d, g_n, c_n, 1.0)
         t = -modal.direct(np.logspace(-3, 11, 14 * 1000 + 1))[0]
-    lowest, passes = _dense_reading(t)
+    lowest, passes, margin = _dense_reading(t, gain_margin=True)
     # The case is the hard one: its lowest phase above unity is well below -180 deg ...
     assert lowest < -300
     assert m["loop_phase_min_deg"][0] == pytest.approx(lowest, abs=3.0)
@@ -50,6 +57,9 @@ def test_a_late_resonance_above_unity_is_not_conditional_stability():
     assert passes == 0
     assert m["cl_stable"][0] == 1
     assert m["conditionally_stable"][0] == 0
+    # Its gain margin is how far inside -1 the curve passed on the way to the resonance.
+    assert 0 < margin[0] < 20
+    assert margin[0] <= m["loop_gain_margin_db"][0] <= margin[1]
 
 
 def _rational(k, poles, zeros):
@@ -80,6 +90,24 @@ def test_a_dip_below_minus_180_above_unity_is_still_conditional_stability(case):
     assert lowest < -180
     t0 = np.array([response(np.array([[1e-9]]))[0, 0].real])
     with np.errstate(all="ignore"):
-        _, _, low, flagged = st._phase_reading(response, t0, 1e-3, 1e11)
+        _, _, low, flagged, _ = st._phase_reading(response, t0, 1e-3, 1e11)
     assert low[0] == pytest.approx(lowest, abs=2.0)
     assert bool(flagged[0]) == bool(expected)
+
+
+@pytest.mark.parametrize("k", [2.0, 4.0, 7.9])
+def test_gain_margin_of_three_equal_poles_is_the_handbook_value(k):
+    """T = K / (1 + s/p)^3 passes -180 deg at w = sqrt(3) p, where |T| = K / 8: a gain margin of
+    20 log10(8 / K) (the classic third-order example, from memory of any feedback-control text)."""
+    response = _rational(k, [2 * np.pi * 1e3] * 3, [])
+    with np.errstate(all="ignore"):
+        *_, margin = st._phase_reading(response, np.array([k]), 1e-3, 1e11)
+    assert margin[0] == pytest.approx(20 * np.log10(8 / k), abs=1e-6)
+
+
+def test_a_loop_past_minus_one_has_no_gain_margin():
+    """K = 10 > 8: the curve crosses the negative real axis at -10/8, left of -1; no margin is left to state."""
+    response = _rational(10.0, [2 * np.pi * 1e3] * 3, [])
+    with np.errstate(all="ignore"):
+        *_, passes, margin = st._phase_reading(response, np.array([10.0]), 1e-3, 1e11)
+    assert passes[0] and margin[0] == -np.inf

@@ -128,7 +128,7 @@ def test_closed_loop_rhp_count_obeys_nyquist(name, tech_name, inverting):
 
 @pytest.mark.parametrize("tech_name", list(TECHS))
 @pytest.mark.parametrize("name", NAMES)
-def test_loop_phase_reading_agrees_with_dense_solves(name, tech_name, inverting):
+def test_loop_phase_and_gain_margin_agree_with_dense_solves(name, tech_name, inverting):
     build, diff, cm, finite = _population(name, tech_name, seed=5)
     inv = inverting(build, DEMO_CONDITIONS)
     beta = 0.5
@@ -155,6 +155,22 @@ def test_loop_phase_reading_agrees_with_dense_solves(name, tech_name, inverting)
         # Turns apart only where the reading sits on the branch cut at +-180 deg.
         assert abs((metrics["loop_phase_margin_deg"][k] - margin + 180) % 360 - 180) < 0.05
         assert metrics["loop_phase_min_deg"][k] == pytest.approx(lowest, abs=0.05)
+        # The gain margin: |T| where the dense phase passes an odd multiple of -180 deg, each instant by brentq.
+        branch = np.floor((phase + np.pi) / (2 * np.pi))
+        reach = []
+        for i in np.flatnonzero(np.diff(branch) != 0):
+            level, ref = np.pi * (2 * max(branch[i], branch[i + 1]) - 1), 0.5 * (phase[i] + phase[i + 1])
+
+            def turned(lf, level=level, ref=ref):
+                t_at = _return_ratio(diff, inv, k, beta, np.exp([lf]))[0]
+                return ref + np.angle(t_at * np.exp(-1j * ref)) - level
+            at = scipy.optimize.brentq(turned, np.log(freqs[i]), np.log(freqs[i + 1]), xtol=1e-14)
+            reach.append(abs(_return_ratio(diff, inv, k, beta, np.exp([at]))[0]))
+        expected = (np.inf if not reach else -np.inf if max(reach) > 1 else -20 * np.log10(max(reach)))
+        if np.isfinite(expected):
+            assert metrics["loop_gain_margin_db"][k] == pytest.approx(expected, abs=0.01)
+        else:
+            assert metrics["loop_gain_margin_db"][k] == expected
         checked += 1
     assert checked >= 3
 

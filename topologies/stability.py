@@ -34,6 +34,10 @@ Metrics (`stability_metrics`), arrays of shape (designs,), NaN for designs whose
                            turn off (a sharp doublet unwrapped the other way round) reads the same margin
     loop_phase_min_deg     lowest net phase of T (unwrapped continuously from DC, where a loop of
                            negative feedback has 0 deg) at any frequency where |T| > 1, deg
+    loop_gain_margin_db    -20 log10 of the largest |T| where the phase passes an odd multiple of -180 deg
+                           (the Nyquist curve crosses the negative real axis), dB; inf where it never does,
+                           -inf where it crosses left of -1. A late resonance that passes -180 deg just
+                           inside the unit circle reads near 0
     conditionally_stable   1 where the closed loop is stable although the loop phase passes an odd
                            multiple of -180 deg while |T| > 1 (the Nyquist curve crosses the negative real
                            axis left of -1): it would go unstable if the loop gain dropped there (supply,
@@ -227,7 +231,8 @@ def input_coupling(build: Build, nodes) -> tuple[np.ndarray, np.ndarray] | None:
 
 
 def _phase_reading(response, t0: np.ndarray, f_lo: float, f_hi: float):
-    """Crossover, phase margin and lowest phase above unity gain of the loop gain T.
+    """Crossover, phase margin, lowest phase above unity gain, crossing left of -1 and gain margin (dB)
+    of the loop gain T.
 
     The phase is unwrapped along a log grid from DC, where T(0) is real: 0 deg for negative feedback
     (T(0) > 0), -180 deg when the loop feeds back positively at DC. The grid's lowest phase where |T| > 1 is
@@ -291,8 +296,13 @@ def _phase_reading(response, t0: np.ndarray, f_lo: float, f_hi: float):
     refined = np.where(np.abs(value) > 1.0, refined, np.inf)
     lowest = np.fmin(np.fmin(grid_min, refined), np.where(has_cross, phase_c, np.inf))
     lowest = np.where(above.any(axis=1), np.degrees(lowest), np.nan)
-    passes = dip | _passes_left_of_minus_one(response, phase, above, logf, phase_near)
-    return (np.where(has_cross, f_c, 0.0), np.where(has_cross, margin, np.nan), lowest, passes)
+    crossing, reach = _negative_axis_crossings(response, phase, above, logf, phase_near)
+    passes = dip | crossing
+    # A curve already left of -1 somewhere has no margin to state (-inf): where it passes there, |T| is as
+    # ill-defined as the instant (a resonance inside one grid step, a dip too flat to place a crossing).
+    with np.errstate(divide="ignore"):     # no crossing of the negative real axis: an infinite margin
+        gain_margin = np.where(passes, -np.inf, -20.0 * np.log10(reach))
+    return np.where(has_cross, f_c, 0.0), np.where(has_cross, margin, np.nan), lowest, passes, gain_margin
 
 
 def _phase_reading_compiled(modal: _Modal, beta: float, tau, t0, f_lo: float, f_hi: float):
@@ -310,27 +320,30 @@ def _branch(phase):
     return np.floor((phase + np.pi) / (2 * np.pi))
 
 
-def _passes_left_of_minus_one(response, phase, above, logf, phase_near):
-    """Designs whose Nyquist curve crosses the negative real axis left of -1: the phase passes an odd
-    multiple of -180 deg while |T| > 1.
+def _negative_axis_crossings(response, phase, above, logf, phase_near):
+    """(passes, reach): designs whose Nyquist curve crosses the negative real axis left of -1 (the phase
+    passes an odd multiple of -180 deg while |T| > 1), and the largest |T| at any crossing of the negative
+    real axis (0 where the phase never gets there): where none is left of -1, the loop's gain margin is
+    -20 log10 of it.
 
     The lowest phase above unity gain alone does not tell: a loop gain that falls below one, passes -180
     deg inside the unit circle and rises above one again on the far side (a late resonance of the
     output, phase near -340 deg) has its lowest phase above unity below -180 deg without any such
-    crossing; it is neither unstable nor conditionally stable. Grid steps where the branch changes with
-    |T| > 1 at both ends count as they are; where only one end is above unity, the crossing instant is
-    found by bisection on the phase and |T| read there."""
+    crossing; it is neither unstable nor conditionally stable, and its gain margin is how far inside the
+    circle it passed. Grid steps where the branch changes with |T| > 1 at both ends pass as they are; in
+    every other step where it changes, the crossing instant is found by bisection on the phase and |T|
+    read there."""
     branch = _branch(phase)
-    change = branch[:, 1:] != branch[:, :-1]
-    both = (change & above[:, 1:] & above[:, :-1]).any(axis=1)
-    edge = change & (above[:, 1:] != above[:, :-1])
+    change = (branch[:, 1:] != branch[:, :-1]) & np.isfinite(branch[:, 1:]) & np.isfinite(branch[:, :-1])
+    outside = change & above[:, 1:] & above[:, :-1]
+    step = change & ~outside
     designs = len(phase)
-    count = edge.sum(axis=1)
+    count = step.sum(axis=1)
     if not count.any():
-        return both
-    # Each design's edge steps side by side, padded with its first one, so all are refined at once.
+        return outside.any(axis=1), np.zeros(designs)
+    # Each design's other crossing steps side by side, padded with its first one, so all are refined at once.
     width = int(count.max())
-    order = np.argsort(~edge, axis=1, kind="stable")[:, :width]
+    order = np.argsort(~step, axis=1, kind="stable")[:, :width]
     k = np.where(np.arange(width)[None, :] < count[:, None], order, order[:, :1])
     rows = np.arange(designs)[:, None]
     lo, hi = logf[k], logf[k + 1]
@@ -348,7 +361,9 @@ def _passes_left_of_minus_one(response, phase, above, logf, phase_near):
     at = np.stack([np.abs(response(np.exp(0.5 * (lo[:, i] + hi[:, i]))[:, None])[:, 0]) for i in range(width)],
                   axis=1)
     valid = np.arange(width)[None, :] < count[:, None]
-    return both | (valid & (at > 1.0)).any(axis=1)
+    passes = outside.any(axis=1) | (valid & (at > 1.0)).any(axis=1)
+    reach = np.where(valid & (at > 0.0), at, 0.0).max(axis=1)
+    return passes, reach
 
 
 def _step(modal: _Modal, finite: np.ndarray, stable: np.ndarray, band=SETTLE_BAND):
@@ -718,15 +733,16 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         # The compiled reading knows the lumped network pole only; the input devices' gate-row coupling
         # (every network with a gate at inn) is read on the numpy path.
         if kernels.enabled() and coupling is None:
-            crossover, margin, lowest, passes = _phase_reading_compiled(opened, beta, tau, t0, f_lo, f_hi)
+            reading = _phase_reading_compiled(opened, beta, tau, t0, f_lo, f_hi)
         else:
-            crossover, margin, lowest, passes = _phase_reading(loop, t0, f_lo, f_hi)
+            reading = _phase_reading(loop, t0, f_lo, f_hi)
+        crossover, margin, lowest, passes, loop_gain_margin = reading
         if bad_open.any():
             rows = np.flatnonzero(bad_open)
             sub = _Modal(g=opened.g[rows], c=opened.c[rows], b0=opened.b0[rows], b1=opened.b1[rows], out=out)
             pole = (lambda f: 1.0) if tau is None else (lambda f: network_pole(f, tau[rows]))
             redo = _phase_reading(lambda f: -beta * sub.direct(f) * pole(f), t0[rows], f_lo, f_hi)
-            for target, value in zip((crossover, margin, lowest, passes), redo):
+            for target, value in zip(reading, redo):
                 target[rows] = value
     # The step response has no direct-solve fallback: a near-defective closed loop (coincident poles to
     # within the modal tolerance) reads NaN rather than a number that may be wrong.
@@ -743,6 +759,7 @@ def stability_from_circuits(differential: Circuit, common_mode: Circuit, beta: f
         "loop_crossover_hz": crossover,
         "loop_phase_margin_deg": margin,
         "loop_phase_min_deg": lowest,
+        "loop_gain_margin_db": loop_gain_margin,
         "conditionally_stable": conditional,
         "gain_error": gain_error,
         **({"step_settling_s": large, "step_slope_v_per_s": steepest} if settle is not None else {}),

@@ -1,5 +1,5 @@
 """Compiled twins of the loop-gain reading in stability.py (`_phase_reading` with
-`_passes_left_of_minus_one`, and `_Modal.checked`'s two responses).
+`_negative_axis_crossings`, and `_Modal.checked`'s two responses).
 
 The return ratio is T(f) = -beta x_out(f) / (1 + j 2 pi f tau) with x_out in modal form (tau = 0: no network
 pole). Each design is read in one pass: the grid, its unwrapped phase, the crossover's regula falsi, the
@@ -74,11 +74,12 @@ _fmin = compiled(_fmin)
 
 
 def phase_reading(r0, r1, lam, beta, tau, t0, grid, logf):
-    """(crossover Hz, phase margin deg, lowest phase deg, passes left of -1) for every design, as
+    """(crossover Hz, phase margin deg, lowest phase deg, passes left of -1, gain margin dB) for every design, as
     stability._phase_reading returns them for T(f) = -beta x_out / (1 + j 2 pi f tau)."""
     designs, points = r0.shape[0], grid.shape[0]
     crossover, margin = np.empty(designs), np.empty(designs)
     lowest, passes = np.empty(designs), np.zeros(designs, np.bool_)
+    gain_margin = np.empty(designs)
     res, ims = np.empty(points), np.empty(points)
     phase, mag = np.empty(points), np.empty(points)
     above = np.empty(points, np.bool_)
@@ -170,31 +171,38 @@ def phase_reading(r0, r1, lam, beta, tau, t0, grid, logf):
         low = _fmin(_fmin(grid_min, refined), phase_c if has_cross else np.inf)
         lowest[d] = low * DEGREES if any_above else np.nan
 
-        # Crossings of the negative real axis left of -1 (stability._passes_left_of_minus_one).
-        found = dip
+        # Crossings of the negative real axis (stability._negative_axis_crossings): left of -1, and the
+        # largest |T| at any of them.
+        found, reach = dip, 0.0
         for i in range(points - 1):
-            if found:
-                break
             b0, b1 = _branch(phase[i]), _branch(phase[i + 1])
-            if b0 == b1:
+            if b0 == b1 or math.isnan(b0) or math.isnan(b1):
                 continue
             if above[i] and above[i + 1]:
                 found = True
-            elif above[i] != above[i + 1]:
-                lo, hi, p_lo, p_hi = logf[i], logf[i + 1], phase[i], phase[i + 1]
-                level = np.pi * (2 * max(b0, b1) - 1)
-                rising = p_hi > p_lo
-                for _ in range(30):
-                    mid = 0.5 * (lo + hi)
-                    p_mid, _ = _phase_near(r0, r1, lam, d, beta, tau, math.exp(mid), 0.5 * (p_lo + p_hi))
-                    if (p_mid > level) == rising:
-                        hi, p_hi = mid, p_mid
-                    else:
-                        lo, p_lo = mid, p_mid
-                re, im = _loop(r0, r1, lam, d, beta, tau, math.exp(0.5 * (lo + hi)))
-                found = math.hypot(re, im) > 1.0
+                continue
+            lo, hi, p_lo, p_hi = logf[i], logf[i + 1], phase[i], phase[i + 1]
+            level = np.pi * (2 * max(b0, b1) - 1)
+            rising = p_hi > p_lo
+            for _ in range(30):
+                mid = 0.5 * (lo + hi)
+                p_mid, _ = _phase_near(r0, r1, lam, d, beta, tau, math.exp(mid), 0.5 * (p_lo + p_hi))
+                if (p_mid > level) == rising:
+                    hi, p_hi = mid, p_mid
+                else:
+                    lo, p_lo = mid, p_mid
+            re, im = _loop(r0, r1, lam, d, beta, tau, math.exp(0.5 * (lo + hi)))
+            at = math.hypot(re, im)
+            if at > 1.0:
+                found = True
+            if at > reach:
+                reach = at
         passes[d] = found
-    return crossover, margin, lowest, passes
+        if found:
+            gain_margin[d] = -np.inf
+        else:
+            gain_margin[d] = -20.0 * math.log10(reach) if reach > 0.0 else np.inf
+    return crossover, margin, lowest, passes, gain_margin
 
 
 phase_reading = compiled(phase_reading)

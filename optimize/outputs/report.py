@@ -23,7 +23,7 @@ from ampfront.optimize.outputs.summary import RunSummary
 from ampfront.optimize.outputs.spread import corner_spread_html
 from ampfront.optimize.outputs.verdict import Verdict, flag, sentence_axes, verdict
 from ampfront.optimize.spec.study import Study
-from ampfront.topologies.catalog import M, METRICS, OBJECTIVES, format_spec, spec_label
+from ampfront.topologies.catalog import BOUNDS, M, METRICS, OBJECTIVES, format_spec, spec_label
 
 CAUTION = ("Pre-layout estimates from analytic device models. Confirm every design with the foundry's models, "
            "sign-off simulation across corners and the team's design review before committing to it.")
@@ -49,8 +49,11 @@ def figure_html(fig: go.Figure, name: str) -> str:
 
 
 def spec_rows(study: Study) -> list[tuple[str, str]]:
-    """Every spec value the study set, in the unit of what it bounds (the catalog's own formatting)."""
+    """Every spec value the study set, in the unit of what it bounds (the catalog's own formatting), then
+    the catalog's defaults it left standing: they shape the front as much."""
     rows = [(spec_label(key), format_spec(key, value)) for key, value in study.spec.items()]
+    rows += [(spec_label(b.key), f"{format_spec(b.key, b.default)} (default)") for b in BOUNDS.values()
+             if b.default is not None and b.key not in study.spec]
     rows.append((spec_label("input_cm"), format_spec("input_cm", study.cm_range)))
     rows.append((spec_label("noise_band"), format_spec("noise_band", study.conditions.noise_band)))
     if study.corners or study.supply_tolerance:
