@@ -48,17 +48,17 @@ def comparison(request, tmp_path_factory):
     return folder / "out"
 
 
-# Known disagreements on this study's SKY130 fronts since the swing ends were made honest (issue 11): the
-# fronts moved, and these cases are recorded with what was measured (DEVELOPERS.md, Known limits).
+# Known disagreements on this study's SKY130 fronts since the swing ends were made honest (issue 11) and the
+# gain margin became a default (6 dB): the fronts moved, and these cases are recorded with what was measured
+# (DEVELOPERS.md, Known limits). The default took the telescopic cascode's noise outlier (15.3 % on one
+# design) off its front and gave the pMOS telescopic cascode with class AB a front that agrees.
 KNOWN = {
-    ("sky130", "folded_cascode_pmos_ab"): "supply current 4.2-4.7 % above ngspice's on the lowest-current "
-                                          "designs (7-8 uA; bound 3 %)",
-    ("sky130", "telescopic_cascode"): "noise at 100 Hz 15.3 % above ngspice's on one design (model "
-                                      "pessimistic; bound 15 %)",
+    ("sky130", "folded_cascode_pmos_ab"): "no design meets the spec at this study's fixed 48 x 40 budget since "
+                                          "the default gain margin (closest: widest device 2.2 mm of 2, "
+                                          "saturation margin 38.7 mV of 50); before it, its supply current read "
+                                          "4.2-4.7 % above ngspice's on the lowest-current designs (bound 3 %)",
     ("sky130", "telescopic_cascode_ab"): "no design meets the spec with the 3 U_T swing guard on the core's "
                                          "ends (closest: saturation margin 41.8 mV of 50, 347 uW of 300)",
-    ("sky130", "telescopic_cascode_pmos_ab"): "no design meets the spec with the 3 U_T swing guard on the "
-                                              "core's ends",
 }
 
 
