@@ -84,3 +84,17 @@ def test_a_searched_telescopic_front_keeps_the_margin():
     assert result.feasible and len(result.X) >= 20
     metrics, _ = problem.metrics(result.X)
     assert (metrics["gain_margin_db"] >= 6).all() and (metrics["loop_gain_margin_db"] >= 6).all()
+
+
+@pytest.mark.parametrize("k", [2.0, 5.0])
+def test_the_simulator_side_reads_a_swept_gain_margin(k):
+    """ngspice's side (`ngspice.gain_margin`) on the sweep the open-loop testbench writes (40 points a
+    decade, continuous phase): K / (1 + s/p)^3 has 20 log10(8 / K) (from memory of any feedback-control
+    text); one pole never reaches -180 deg."""
+    from ampfront.optimize.simulator.ngspice import gain_margin
+
+    f = np.logspace(-1, 12, 13 * 40 + 1)
+    for poles, expected in (([1e3] * 3, 20 * np.log10(8 / k)), ([1e3], np.inf)):
+        h = k / np.prod([1 + 1j * f / p for p in poles], axis=0)
+        read = gain_margin(f, 20 * np.log10(np.abs(h)), np.degrees(np.unwrap(np.angle(h))))
+        assert read == pytest.approx(expected, abs=0.01)

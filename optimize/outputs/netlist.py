@@ -101,6 +101,11 @@ def loop_horizon(step_horizon_s: float, slew: float, cond: Conditions) -> float:
     return 2.0 * cond.step_v / slew + 1.5 * stretch * step_horizon_s
 
 
+def ac_data_file(design: str) -> str:
+    """The open-loop testbench's sweep (frequency, gain dB, frequency, continuous phase deg)."""
+    return f"{design}_ac.dat"
+
+
 # Tags the loop testbench prints besides metrics: what its data file is to be judged against.
 LOOP_STEP, LOOP_BAND, LOOP_START, LOOP_FALL = "loop_step_v", "loop_settle_band", "loop_step_at_s", "loop_fall_at_s"
 LOOP_POINTS = 6000
@@ -269,7 +274,7 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
     rl = _load(cond)
     tag = RESULT_TAG
     return "\n".join([
-        f"* ampfront testbench for {name}: open-loop gain, GBW, phase margin and supply current",
+        f"* ampfront testbench for {name}: open-loop gain, GBW, phase and gain margins and supply current",
         *model_lines(build, i, tech),
         f".include {subckt_file}",
         f".temp {tech.temperature - 273.15:g}",
@@ -296,6 +301,9 @@ def testbench(build: Build, i: int, tech: Technology, cond: Conditions, name: st
         "meas ac gain_db find gain_db_vec at=0.1",
         "meas ac gbw_hz when gain_db_vec=0 fall=1",
         "meas ac phase_at_gbw find phase_vec at=gbw_hz",
+        # The whole sweep for the gain margin, read by the simulator's side where the phase first passes
+        # -180 deg (a measure that finds no crossing would leave ngspice with nothing to print).
+        f"wrdata {ac_data_file(_name(name, 'design name'))} gain_db_vec phase_vec",
         # Referred to the nearest turn: a pole-zero doublet can carry the continuous phase a full turn
         # round, which would read as a margin 360 deg off (the model reads it the same way).
         "let pm_raw = 180 + phase_at_gbw",

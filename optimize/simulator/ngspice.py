@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from ampfront.optimize.outputs.netlist import (CM_GAIN, LOOP_BAND, LOOP_FALL, LOOP_START, LOOP_STEP, RESULT_TAG,
-                                              SUPPLY_GAIN, TESTBENCH_METRICS)
+                                              SUPPLY_GAIN, TESTBENCH_METRICS, ac_data_file)
 from ampfront.topologies.catalog import M
 
 DEFAULT_TIMEOUT_S = 120.0
@@ -110,8 +110,10 @@ def _kill_group(proc: subprocess.Popen) -> None:
 
 
 def simulate(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, float]:
-    """Run one open-loop testbench; return the values it printed (SI units), rejection ratios derived."""
-    stdout, stderr = _run(testbench, timeout)
+    """Run one open-loop testbench (`<design>_tb.sp`); return the values it printed (SI units), rejection
+    ratios derived, and the gain margin read from its sweep (`<design>_ac.dat`)."""
+    data_file = ac_data_file(testbench.name.removesuffix("_tb.sp"))
+    stdout, stderr = _run(testbench, timeout, outputs=(data_file,))
     values = _tagged(stdout)
     wanted = (*TESTBENCH_METRICS, CM_GAIN, SUPPLY_GAIN)
     missing = [k for k in wanted if k not in values or not math.isfinite(values[k])]
@@ -120,7 +122,29 @@ def simulate(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, f
     out = {k: values[k] for k in TESTBENCH_METRICS}
     out[M.cmrr_db] = out[M.gain_db] - values[CM_GAIN]
     out[M.psrr_db] = out[M.gain_db] - values[SUPPLY_GAIN]
+    try:
+        data = np.loadtxt(testbench.parent / data_file, ndmin=2)
+        out[M.gain_margin_db] = gain_margin(data[:, 0], data[:, 1], data[:, 3])
+    except (ValueError, IndexError) as error:
+        raise SpiceError(f"{testbench.name}: unreadable sweep {data_file} ({error})", UNREADABLE) from None
     return out
+
+
+def gain_margin(freq: np.ndarray, gain_db: np.ndarray, phase_deg: np.ndarray) -> float:
+    """Gain margin (dB) of a swept open loop: minus its gain where the continuous phase, anchored within
+    half a turn of 0 at the sweep's start, first falls through -180 deg (log-frequency interpolation);
+    inf where it never does. The model reads the same crossing (smallsignal._crossings)."""
+    phase = phase_deg - 360.0 * np.round(phase_deg[0] / 360.0)
+    if not np.isfinite(phase).all():
+        return math.nan
+    past = np.flatnonzero(phase <= -180.0)
+    if not len(past):
+        return math.inf
+    j = past[0]
+    if j == 0:
+        return math.nan
+    t = (-180.0 - phase[j - 1]) / (phase[j] - phase[j - 1])
+    return float(-(gain_db[j - 1] + t * (gain_db[j] - gain_db[j - 1])))
 
 
 def _tagged(stdout: str) -> dict[str, float]:

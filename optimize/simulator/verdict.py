@@ -15,9 +15,12 @@ from ampfront.topologies.catalog import AGREEMENT, SWING_SHORTFALL_V, SWING_SLAC
 # Rejection of an ideal, unmismatched circuit beyond this is set by residual bias asymmetries, not by the
 # circuit; real parts are limited by mismatch long before. Both sides are compared clipped here.
 REJECTION_CEILING_DB = 100.0
+# A gain margin beyond this is ample either way, and one read far above the crossover (or none: inf, the
+# phase never reaching -180 deg) is where neither the tables nor BSIM4 are trusted: compared clipped.
+GAIN_MARGIN_CEILING_DB = 40.0
 FIGURES = {
-    OPEN_LOOP: (M.gain_db, M.gbw_hz, M.phase_margin_deg, M.supply_current_a, M.power_w, M.noise_1hz_v_rthz,
-                M.noise_100hz_v_rthz, M.cmrr_db, M.psrr_db),
+    OPEN_LOOP: (M.gain_db, M.gbw_hz, M.phase_margin_deg, M.gain_margin_db, M.supply_current_a, M.power_w,
+                M.noise_1hz_v_rthz, M.noise_100hz_v_rthz, M.cmrr_db, M.psrr_db),
     STEP: (M.overshoot_pct,),
     SWING: (M.out_low_v, M.out_high_v, M.swing_v),
     LOOP: (M.gain_error, M.loop_phase_margin_deg, M.step_settling_s, M.step_slope_v_per_s),
@@ -32,6 +35,8 @@ def agreement(metric: str, kind: str, model: float, simulated: float) -> tuple[f
     mode, bound = AGREEMENT[metric][kind]
     if metric in (M.cmrr_db, M.psrr_db):
         model, simulated = min(model, REJECTION_CEILING_DB), min(simulated, REJECTION_CEILING_DB)
+    if metric == M.gain_margin_db:
+        model, simulated = min(model, GAIN_MARGIN_CEILING_DB), min(simulated, GAIN_MARGIN_CEILING_DB)
     error = abs(simulated - model) if mode == "abs" else abs(simulated - model) / max(abs(model), 1e-30)
     return error, bound, mode
 
@@ -52,12 +57,16 @@ def _spec(metric: str, value: float, constraints) -> tuple[str, float, float]:
     """The tightest of the study's bounds on `metric` at `value`: (name, bound, margin; positive = met)."""
     best = ("", math.nan, math.nan)
     for c in constraints:
-        if c.metric != metric or not math.isfinite(value):
+        if c.metric != metric or not _read(metric, value):
             continue
         margin = value - c.bound if c.sense == "min" else c.bound - value
         if not math.isfinite(best[2]) or margin < best[2]:
             best = (c.name, c.bound, margin)
     return best
+
+
+def _read(metric: str, value: float) -> bool:
+    return math.isfinite(value) or (metric == M.gain_margin_db and value == math.inf)
 
 
 def _slews(model: dict) -> bool:
@@ -91,8 +100,9 @@ def rows(task: Task, outcome: Outcome, topology: str, model: dict, kind: str, co
                 error, bound, _ = agreement(metric, kind, m, s)
                 ok = error <= bound
                 reason = "" if ok else f"off by {error:.3g} (bound {bound:g})"
-            if not (math.isfinite(s) and math.isfinite(m)):
-                ok, reason = False, "not measured" if not math.isfinite(s) else "no model value"
+            # An infinite gain margin is a reading (no -180 deg crossing), not a missing one.
+            if not (_read(metric, s) and _read(metric, m)):
+                ok, reason = False, "not measured" if not _read(metric, s) else "no model value"
             sim_margin = _spec(metric, s, constraints)[2] if spec_name else math.nan
             row.update(simulated=s, error=error, bound=bound, status=AGREES if ok else DISAGREES, reason=reason,
                        simulated_margin=sim_margin,
