@@ -98,3 +98,27 @@ def test_the_simulator_side_reads_a_swept_gain_margin(k):
         h = k / np.prod([1 + 1j * f / p for p in poles], axis=0)
         read = gain_margin(f, 20 * np.log10(np.abs(h)), np.degrees(np.unwrap(np.angle(h))))
         assert read == pytest.approx(expected, abs=0.01)
+
+
+def test_the_check_judges_a_margin_the_model_reads_as_infinite_by_the_bound():
+    """Where the model's phase never reaches -180 deg (inf) and ngspice's creeps past it on the feedforward
+    plateau far above the crossover, what the model claimed, the bound, is what the check holds; a finite
+    model margin is held to ngspice's within 1 dB as any figure."""
+    from ampfront.optimize.simulator.tasks import OPEN_LOOP, Outcome, make_task
+    from ampfront.optimize.simulator.verdict import FIGURES, rows
+    from ampfront.topologies.catalog import M
+
+    study = load_study(SENSOR, topologies.available())
+    task = make_task("ota_001", OPEN_LOOP, {"ota_001_tb.sp": "x"})
+
+    def judged(model_gm, spice_gm):
+        model = {m: 1.0 for m in FIGURES[OPEN_LOOP]} | {M.gain_margin_db: model_gm}
+        spice = dict(model) | {M.gain_margin_db: spice_gm}
+        row = next(r for r in rows(task, Outcome(task.key, spice), "simple_ota", model, "gm_id_tables",
+                                   study.constraints, 1.8) if r["metric"] == M.gain_margin_db)
+        return row["status"], row["meets_spec"]
+
+    assert judged(np.inf, 15.7) == ("agrees", "yes")
+    assert judged(np.inf, 4.0) == ("disagrees", "no")
+    assert judged(np.inf, np.inf)[0] == "agrees"
+    assert judged(12.0, 12.8)[0] == "agrees" and judged(12.0, 14.0)[0] == "disagrees"

@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 
 from ampfront.optimize.simulator.tasks import LOOP, OPEN_LOOP, STEP, SWING, Outcome, Task
-from ampfront.topologies.catalog import AGREEMENT, SWING_SHORTFALL_V, SWING_SLACK_V, M
+from ampfront.topologies.catalog import AGREEMENT, BOUNDS, SWING_SHORTFALL_V, SWING_SLACK_V, M
 
 # Rejection of an ideal, unmismatched circuit beyond this is set by residual bias asymmetries, not by the
 # circuit; real parts are limited by mismatch long before. Both sides are compared clipped here.
@@ -100,6 +100,14 @@ def rows(task: Task, outcome: Outcome, topology: str, model: dict, kind: str, co
                 error, bound, _ = agreement(metric, kind, m, s)
                 ok = error <= bound
                 reason = "" if ok else f"off by {error:.3g} (bound {bound:g})"
+                if metric == M.gain_margin_db and m == math.inf and math.isfinite(s):
+                    # The model's phase never reaches -180 deg; the simulator's may creep past it far above
+                    # the crossover, on the feedforward plateau (measured: a SKY130 simple OTA at -179.0 deg
+                    # at 1 GHz, -180 at 2.8 GHz, 15.7 dB down). What the model claims there is that the
+                    # bound holds, and that is what is judged.
+                    held = spec_bound if spec_name else BOUNDS["min_gain_margin"].default
+                    ok = s >= held
+                    reason = "" if ok else f"no -180 deg crossing in the model; ngspice's under {held:g} dB"
             # An infinite gain margin is a reading (no -180 deg crossing), not a missing one.
             if not (_read(metric, s) and _read(metric, m)):
                 ok, reason = False, "not measured" if not _read(metric, s) else "no model value"
