@@ -132,8 +132,9 @@ def simulate(testbench: Path, timeout: float = DEFAULT_TIMEOUT_S) -> dict[str, f
 
 def gain_margin(freq: np.ndarray, gain_db: np.ndarray, phase_deg: np.ndarray) -> float:
     """Gain margin (dB) of a swept open loop: minus its gain where the continuous phase, anchored within
-    half a turn of 0 at the sweep's start, first falls through -180 deg (log-frequency interpolation);
-    inf where it never does. The model reads the same crossing (smallsignal._crossings)."""
+    half a turn of 0 at the sweep's start, first falls through -180 deg (the gain interpolated between the
+    two sweep points around it, by phase); inf where it never does. The model reads the same crossing
+    (smallsignal._crossings)."""
     phase = phase_deg - 360.0 * np.round(phase_deg[0] / 360.0)
     if not np.isfinite(phase).all():
         return math.nan
