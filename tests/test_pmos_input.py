@@ -113,6 +113,9 @@ def test_input_common_mode_near_ground_needs_the_pmos_pair(tmp_path):
     # An nMOS pair's source must sit above its tail source's saturation voltage and its gate a threshold
     # above that: no nMOS-input design takes 0.1 V at its gates.
     assert "two_stage_miller" in summary.infeasible
+    # Not one of its designs has an operating point: said once, not as every constraint "n/a".
+    said = summary.infeasible["two_stage_miller"].describe()
+    assert "no design it evaluated has an operating point the model could solve" in said and "n/a" not in said
     front = pd.read_csv(tmp_path / "out" / "front.csv")
     assert {"two_stage_miller_pmos", "folded_cascode_pmos"} <= set(front["topology"])
     assert (front["cm_low_v"] <= 0.1 + 1e-9).all()

@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from ampfront.optimize.search.outcome import Infeasible, Rejections
+from ampfront.optimize.search.outcome import UNSOLVED, Infeasible, Rejections
 from ampfront.topologies.catalog import BOUNDS, INPUT_CM, METRICS, OBJECTIVES, RULES, metric
 
 # A constraint "binds" a design whose margin is within this fraction of the constraint's scale.
@@ -108,6 +108,8 @@ def miss_text(constraint: str, metric_name: str, sense: str, value: float, bound
 
 def _misses(rows: pd.DataFrame, record: Infeasible | None, constraints) -> list[tuple[float, str]]:
     """(normalized shortfall, description) of every constraint the closest design misses, worst first."""
+    if record is not None and record.unsolved():
+        return [(np.inf, UNSOLVED)]
     scales = _scales(constraints)
     found = []
     for m in record.misses if record is not None else ():

@@ -13,6 +13,7 @@ from ampfront.topologies.catalog import METRICS, RULES, metric
 # The rules that judge the closed loop: a design they turn away may meet everything else, and a user asks why
 # it is not on the front (issue 15).
 STABILITY_RULES = ("closed_loop_stable", "not_conditionally_stable")
+UNSOLVED = "no design it evaluated has an operating point the model could solve"
 _REASON = {"closed_loop_stable": "unstable in closed loop", "not_conditionally_stable": "conditionally stable"}
 
 
@@ -100,7 +101,15 @@ class Infeasible:
     rejected: Rejections = field(default_factory=Rejections)
     stopped: str = ""
 
+    def unsolved(self) -> bool:
+        """No design the search evaluated had a figure to judge: every miss is unknown."""
+        return bool(self.misses) and not any(math.isfinite(m.value) for m in self.misses)
+
     def describe(self) -> str:
+        if self.unsolved():
+            # Listing every constraint as unknown says nothing; the cause is the operating point.
+            return (f"{self.name}: no design met the spec; {UNSOLVED} ({self.evaluations:,} evaluated; check the "
+                    "input common mode and the supply against this topology's headroom)")
         return f"{self.name}: no design met the spec; the closest misses " + "; ".join(m.describe() for m in self.misses)
 
     def record(self) -> dict:
