@@ -116,6 +116,8 @@ def test_the_check_judges_a_margin_the_model_reads_as_infinite_by_the_bound():
         spice = dict(model) | {M.gain_margin_db: spice_gm}
         row = next(r for r in rows(task, Outcome(task.key, spice), "simple_ota", model, "gm_id_tables",
                                    study.constraints, 1.8) if r["metric"] == M.gain_margin_db)
+        # A row that agrees never reads as off by more than its bound.
+        assert (row["status"] == "agrees") == (row["error"] <= row["bound"])
         return row["status"], row["meets_spec"]
 
     assert judged(np.inf, 15.7) == ("agrees", "yes")
