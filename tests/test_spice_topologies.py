@@ -50,17 +50,18 @@ def comparison(request, tmp_path_factory):
     return folder / "out"
 
 
-# Known disagreements on this study's SKY130 fronts since the swing ends were made honest (issue 11) and the
-# gain margin became a default (6 dB): the fronts moved, and these cases are recorded with what was measured
-# (DEVELOPERS.md, Known limits). The default took the telescopic cascode's noise outlier (15.3 % on one
-# design) off its front and gave the pMOS telescopic cascode with class AB a front that agrees.
+# Known disagreements on this study's SKY130 fronts, recorded with what was measured (DEVELOPERS.md, Known
+# limits). Since the cascode gate generators may be drawn long (stages.GateGenerator), the telescopic cascode
+# with class AB and the pMOS folded cascode with class AB have fronts again, and they agree; the fronts now
+# reach microamp designs in weak inversion, where the model's swing (every device saturated, vdsat plus a
+# guard) ends further inside the rails than the sweep's 20 dB gain collapse: the conservative side, but past
+# the 0.3 V this check allows.
 KNOWN = {
-    ("sky130", "folded_cascode_pmos_ab"): "no design meets the spec at this study's fixed 48 x 40 budget since "
-                                          "the default gain margin (closest: widest device 2.2 mm of 2, "
-                                          "saturation margin 38.7 mV of 50); before it, its supply current read "
-                                          "4.2-4.7 % above ngspice's on the lowest-current designs (bound 3 %)",
-    ("sky130", "telescopic_cascode_ab"): "no design meets the spec with the 3 U_T swing guard on the core's "
-                                         "ends (closest: saturation margin 41.8 mV of 50, 347 uW of 300)",
+    ("sky130", "folded_cascode_pmos"): "swing: the model's highest linear output 0.31-0.41 V short of ngspice's "
+                                       "on two of three designs (2-4 uA supply; bound 0.3 V)",
+    ("sky130", "telescopic_cascode_pmos_ab"): "swing: the model's lowest linear output 0.36 V short of "
+                                              "ngspice's on one of three designs (1 uA peak output current; "
+                                              "bound 0.3 V)",
 }
 
 

@@ -10,8 +10,9 @@ import numpy as np
 
 from .catalog import CORE_REPORTS
 from .base import Build, Conditions, Element, Variable, gm_id_variable, length_variable, snap_length
-from .process.base import Technology, diode_vgs
-from .stages import BiasBranch, CASCODE_ITERATIONS, cascode_variables, device, pair_mismatch, pair_variables
+from .process.base import Technology
+from .stages import (BiasBranch, CASCODE_ITERATIONS, GateGenerator, cascode_variables, device, pair_mismatch,
+                     pair_variables)
 
 
 class FoldedCascode:
@@ -53,19 +54,12 @@ class FoldedCascode:
         w_cn, vgs_cn = tech.size("n", x["gmid_casn"], l_cn, i_cas_t, np.maximum(vcm - na_t, 0.05), na_t)
         w_cp, vsg_cp = tech.size("p", x["gmid_casp"], l_cp, i_cas_t, np.maximum(fa_t - vgs_mb, 0.05), vdd - fa_t)
         targets = {"vbp1": vdd - vsg_src, "vbp2": fa_t - vsg_cp, "vbn": na_t + vgs_cn}
-        i_gen = bias.i_ref
-
-        def generator(polarity, length, level):
-            vgs = level if polarity == "n" else vdd - level
-            return tech.quantize_width(i_gen / tech.current(polarity, 1.0, length, vgs, vgs, zero))
-
-        w_b1, w_b2, w_bn = generator("p", l_src, targets["vbp1"]), generator("p", l_cp, targets["vbp2"]), \
-            generator("n", l_cn, targets["vbn"])
+        gen_1 = GateGenerator.sized(tech, "p", l_src, vdd - targets["vbp1"], bias.i_ref)
+        gen_2 = GateGenerator.sized(tech, "p", l_cp, vdd - targets["vbp2"], bias.i_ref)
+        gen_n = GateGenerator.sized(tech, "n", l_cn, targets["vbn"], bias.i_ref)
 
         # --- DC operating point from the sized circuit --------------------------------------------------
-        vbp1 = vdd - diode_vgs(tech, "p", w_b1, l_src, i_gen)
-        vbp2 = vdd - diode_vgs(tech, "p", w_b2, l_cp, i_gen)
-        vbn = diode_vgs(tech, "n", w_bn, l_cn, i_gen)
+        vbp1, vbp2, vbn = vdd - gen_1.vgs, vdd - gen_2.vgs, gen_n.vgs
         fa, na, mirc, vs = fa_t, na_t, vgs_mb, zero + vcm - 0.6
         fb, nb2, i1, i2 = fa, na, half, half
         for _ in range(CASCODE_ITERATIONS):
@@ -114,15 +108,16 @@ class FoldedCascode:
         devices += [
             tail,
             bias.diode(tech),
-            dev("source_bias", "p", ("vbp1", "vbp1", "vdd", "vdd"), w_b1, l_src, vdd - vbp1, vdd - vbp1, zero),
-            dev("cascode_bias_p", "p", ("vbp2", "vbp2", "vdd", "vdd"), w_b2, l_cp, vdd - vbp2, vdd - vbp2, zero),
-            dev("cascode_bias_n", "n", ("vbn", "vbn", "vss", "vss"), w_bn, l_cn, vbn, vbn, zero),
+            dev("source_bias", "p", ("vbp1", "vbp1", "vdd", "vdd"), gen_1.w, gen_1.l, vdd - vbp1, vdd - vbp1, zero),
+            dev("cascode_bias_p", "p", ("vbp2", "vbp2", "vdd", "vdd"), gen_2.w, gen_2.l, vdd - vbp2, vdd - vbp2,
+                zero),
+            dev("cascode_bias_n", "n", ("vbn", "vbn", "vss", "vss"), gen_n.w, gen_n.l, vbn, vbn, zero),
         ]
         elements = [
             Element("I", "bias_reference", "vdd", "nb", bias.i_ref),
-            Element("I", "source_reference", "vbp1", "vss", i_gen),
-            Element("I", "cascode_p_reference", "vbp2", "vss", i_gen),
-            Element("I", "cascode_n_reference", "vdd", "vbn", i_gen),
+            Element("I", "source_reference", "vbp1", "vss", gen_1.i),
+            Element("I", "cascode_p_reference", "vbp2", "vss", gen_2.i),
+            Element("I", "cascode_n_reference", "vdd", "vbn", gen_n.i),
         ]
         op = {d.role: d for d in devices}
         gm_in, gm_src, gm_mb = (op[r].op.gm for r in ("input_pair_a", "fold_source_a", "mirror_bottom_a"))
@@ -144,4 +139,4 @@ class FoldedCascode:
             "offset_sys_v": vgs2 - vgs1,
             "offset_sigma_v": offset,
         }
-        return Build(devices, elements, bias.i_ref + i_src + i_src_b + 3 * i_gen, metrics)
+        return Build(devices, elements, bias.i_ref + i_src + i_src_b + gen_1.i + gen_2.i + gen_n.i, metrics)

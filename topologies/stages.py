@@ -98,6 +98,48 @@ class BiasBranch:
 
 
 @dataclass
+class GateGenerator:
+    """A diode-connected device that holds a cascode's (or a current source's) gate at its level, fed from a
+    copy of the reference current.
+
+    Where the reference current would need a device narrower than the technology draws to land on the level
+    at the biased device's own length, the diode is drawn longer: the shortest length, up to the longest the
+    technology has, at which a drawable width lands there (the usual long, narrow bias diode, W/L below one).
+    Where even the longest minimum-width diode needs more than the reference, its branch is given that
+    current (a designer mirrors more into it rather than miss the level), and the study's power pays for it.
+    Without this, a gate level well above threshold (the nMOS cascode of a telescopic pair sits about one
+    VGS above the input common mode) tied the reference current to the tail's at the low-power end.
+    """
+
+    w: np.ndarray
+    l: np.ndarray
+    i: np.ndarray
+    vgs: np.ndarray      # as solved from the drawn device
+
+    @classmethod
+    def sized(cls, tech: Technology, polarity, l_device, vgs_target, i_ref) -> "GateGenerator":
+        zero = np.zeros_like(np.asarray(i_ref, float) + l_device + vgs_target)
+        w_floor = np.maximum(tech.w_min, tech.quantize_width(tech.w_min))
+        grid = tech.length_grid
+        lengths = grid if grid is not None else snap_length(np.geomspace(tech.l_min, tech.l_max, 12), tech)
+        w, l, i = zero + np.nan, zero + np.nan, zero + i_ref
+        open_ = np.ones(zero.shape, bool)
+        for candidate in np.concatenate([[0.0], lengths[lengths > 0]]):
+            length = np.maximum(l_device, candidate) + zero
+            density = tech.current(polarity, 1.0, length, vgs_target + zero, vgs_target + zero, zero)
+            needed = i_ref / density
+            take = open_ & ~(needed < w_floor)       # a NaN width is taken as is: the design then fails
+            w, l, open_ = np.where(take, needed, w), np.where(take, length, l), open_ & ~take
+            last_density = density
+        # Still open: even the longest drawable diode needs more than the reference current.
+        w = np.where(open_, w_floor, w)
+        i = np.where(open_, w_floor * last_density, i)
+        l = np.where(open_, length, l)
+        w = tech.quantize_width(w)
+        return cls(w, l, i, diode_vgs(tech, polarity, w, l, i))
+
+
+@dataclass
 class MirrorPair:
     """nMOS differential pair (gates inn/inp, drains mir/o1, common source `tail`) with a pMOS mirror load."""
 

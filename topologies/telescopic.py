@@ -10,8 +10,9 @@ import numpy as np
 
 from .catalog import CORE_REPORTS
 from .base import Build, Conditions, Element, Variable, snap_length
-from .process.base import Technology, diode_vgs
-from .stages import BiasBranch, CASCODE_ITERATIONS, cascode_variables, device, pair_offset_sigma, pair_variables
+from .process.base import Technology
+from .stages import (BiasBranch, CASCODE_ITERATIONS, GateGenerator, cascode_variables, device, pair_offset_sigma,
+                     pair_variables)
 
 
 class TelescopicCascode:
@@ -45,14 +46,12 @@ class TelescopicCascode:
         vp_top = vdd - (2.0 / x["gmid_load"] + margin)       # mirror-top drains
         w_cp, vsg_cp = tech.size("p", x["gmid_casp"], l_cp, half, vp_top - vcm, vdd - vp_top)
         vbp_target = vp_top - vsg_cp
-        # Cascode gate generators: diodes carrying the reference current, sized to land on the targets.
-        i_gen = bias.i_ref
-        w_bn = tech.quantize_width(i_gen / tech.current("n", 1.0, l_cn, vbn_target, vbn_target, zero))
-        w_bp = tech.quantize_width(i_gen / tech.current("p", 1.0, l_cp, vdd - vbp_target, vdd - vbp_target, zero))
+        # Cascode gate generators: diodes fed from the reference, sized to land on the targets.
+        gen_n = GateGenerator.sized(tech, "n", l_cn, vbn_target, bias.i_ref)
+        gen_p = GateGenerator.sized(tech, "p", l_cp, vdd - vbp_target, bias.i_ref)
 
         # --- DC operating point from the sized circuit --------------------------------------------------
-        vbn = diode_vgs(tech, "n", w_bn, l_cn, i_gen)
-        vbp = vdd - diode_vgs(tech, "p", w_bp, l_cp, i_gen)
+        vbn, vbp = gen_n.vgs, vdd - gen_p.vgs
         vs, xd, i5 = zero + vcm - 0.6, vd_in, x["i_tail"]
         pa, mirc = vp_top, vdd - vsg_top
         xb, pb, i1, i2 = xd, pa, half, half
@@ -91,13 +90,13 @@ class TelescopicCascode:
         devices += [
             tail,
             bias.diode(tech),
-            dev("cascode_bias_n", "n", ("vbn", "vbn", "vss", "vss"), w_bn, l_cn, vbn, vbn, zero),
-            dev("cascode_bias_p", "p", ("vbp", "vbp", "vdd", "vdd"), w_bp, l_cp, vdd - vbp, vdd - vbp, zero),
+            dev("cascode_bias_n", "n", ("vbn", "vbn", "vss", "vss"), gen_n.w, gen_n.l, vbn, vbn, zero),
+            dev("cascode_bias_p", "p", ("vbp", "vbp", "vdd", "vdd"), gen_p.w, gen_p.l, vdd - vbp, vdd - vbp, zero),
         ]
         elements = [
             Element("I", "bias_reference", "vdd", "nb", bias.i_ref),
-            Element("I", "cascode_n_reference", "vdd", "vbn", i_gen),
-            Element("I", "cascode_p_reference", "vbp", "vss", i_gen),
+            Element("I", "cascode_n_reference", "vdd", "vbn", gen_n.i),
+            Element("I", "cascode_p_reference", "vbp", "vss", gen_p.i),
         ]
         op = {d.role: d for d in devices}
         gm_in, gm_top = op["input_pair_a"].op.gm, op["mirror_top_a"].op.gm
@@ -116,4 +115,4 @@ class TelescopicCascode:
             "offset_sigma_v": pair_offset_sigma(tech, w_in, l_in, w_top, l_top, gm_in, gm_top),
         }
         # The supply feeds the tail through the mirror, less what the following stage pushes into out.
-        return Build(devices, elements, bias.i_ref + i5 - cond.i_out + 2 * i_gen, metrics)
+        return Build(devices, elements, bias.i_ref + i5 - cond.i_out + gen_n.i + gen_p.i, metrics)
