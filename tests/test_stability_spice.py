@@ -7,8 +7,9 @@ closed by an ideal VCVS, v(inn) - v_cm = beta (v(out) - v_cm), so nothing but th
 output (tests/closed_loop_decks.py). Poles from ngspice's `.pz` of v(out)/v(inp); overshoot and settling
 from a `tran` of a 1 mV step at inp.
 Designs where ngspice's pole search fails (it stops at its iteration limit and prints a partial list, or
-prints one unconverged value again and again) are judged by their transient instead: the step the model's
-poles and residues predict against ngspice's. Only the unity-gain loop is compared by `.pz`: with the loop closed at beta = 0.2 through the VCVS, ngspice's
+prints one unconverged value again and again), and every SKY130 design (BSIM4's .pz also missed roots it
+did not report as failed), are judged by their transient instead: the step the model's poles and residues
+predict against ngspice's. Only the unity-gain loop is compared by `.pz`: with the loop closed at beta = 0.2 through the VCVS, ngspice's
 root search returned repeated poles on a +-1e8 rad/s grid and right-half-plane artifacts (seen on
 generic180 and sky130 folded cascodes), so it is no reference there. Settling times are printed, not
 bounded. Bounds: every dominant model pole (one carrying more than 1e-3 of the step) below five times the loop
@@ -111,8 +112,12 @@ STEP_KNOWN = {
 @pytest.mark.spice
 @pytest.mark.parametrize("beta", [1.0])
 def test_closed_loop_poles_of_front_designs_match_ngspice_pz(fronts, beta, tmp_path):
-    """Every design tried is judged: by ngspice's .pz where its root search finishes, otherwise by the
-    step its poles predict against ngspice's transient (SKY130's BSIM4 loops often stop .pz)."""
+    """Every design tried is judged: on generic180 by ngspice's .pz where its root search finishes, otherwise
+    (and always on SKY130) by the step its poles predict against ngspice's transient. BSIM4 loops often stop
+    .pz, and where it finished on a SKY130 folded cascode with 0.1 uA bias branches it gave only real poles,
+    where the loop (62 deg phase margin), the model (a pair at damping 0.6) and ngspice's own transient (8.1 %
+    overshoot, the model's step within 1.6 % of it) all show a complex pair: a root search that missed two
+    roots, so the transient is SKY130's reference."""
     tech_name, tech, cond, found = fronts
     compared, by_step, tried = 0, 0, 0
     for name, (build, table) in found.items():
@@ -122,7 +127,8 @@ def test_closed_loop_poles_of_front_designs_match_ngspice_pz(fronts, beta, tmp_p
             assert metrics["cl_rhp_poles"][k] == 0
             poles, dominant = _dominant_poles(build, cond, beta, k)
             near = dominant & (np.abs(poles) < 5 * 2 * np.pi * metrics["loop_crossover_hz"][k])
-            theirs, finished = spice_poles(build, k, tech, cond, beta, tmp_path / f"{name}-{k}")
+            theirs, finished = (spice_poles(build, k, tech, cond, beta, tmp_path / f"{name}-{k}")
+                                if tech_name == "generic180" else (None, False))
             if finished:
                 assert near.any(), (name, k)   # a loop has a dominant pole below five crossovers
                 for p in poles[near]:
@@ -185,7 +191,9 @@ def test_unstable_closed_loop_despite_open_loop_margins_oscillates_in_ngspice(tm
 
     tech = load(shipped()["sky130"])
     topology = topologies.available()["telescopic_cascode"]
-    x = random_designs(topology, tech, 3000, seed=18)   # a sample that holds one such design
+    # A sample that holds one such design whose transient ngspice can start (on samples 23-49 its BSIM4
+    # transient stopped at the first step, timestep too small).
+    x = random_designs(topology, tech, 3000, seed=50)
     metrics, build = topologies.evaluate(topology, x, tech, DEMO_CONDITIONS)
     misleading = np.flatnonzero((metrics["cl_rhp_poles"] > 0) & (metrics["phase_margin_deg"] >= 45)
                                 & (metrics["gain_margin_db"] >= 6) & (metrics["rhp_poles"] == 0)

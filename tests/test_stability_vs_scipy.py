@@ -214,8 +214,14 @@ def test_step_response_agrees_with_time_integration(name, tech_name):
         final = np.linalg.solve(g[k], -g_p[k])[out]
         err = np.abs(y - final) / abs(final)
         rise = (y - final) * np.sign(final)
-        if rise.argmax() < 60:
+        peak = rise.argmax()
+        if peak < 60:
             continue   # the peak is the step's feed-through at t = 0+, finer than the reference's steps
+        if peak < 1000:
+            # An early peak (a zero's) is resolved again on a window ten times its instant: the trapezoidal
+            # rule at 167 steps to the peak read 57.563 % where 4x the steps read 57.632 % and ours 57.637 %.
+            _, early = _reference_step(g[k], c[k], g_p[k], c_p[k], out, 10.0 * t[peak], 60000)
+            rise = np.concatenate([(early - final) * np.sign(final), rise[10 * peak:]])
         overshoot = 100 * max(rise.max(), 0.0) / abs(final)
         assert metrics["overshoot_pct"][k] == pytest.approx(overshoot, abs=0.05)
         # The settling instant: outside the band just before it, inside from just after it on (a band edge

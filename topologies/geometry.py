@@ -18,8 +18,17 @@ from .errors import PluginError
 from .process.base import Technology
 
 
+def kept(tech: Technology, *values: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Drawn quantities a build decides from the device model itself rather than through `size` or
+    `quantize_width` (a bias diode's length, the current its branch is given): the values as decided on a
+    first pass, the same values again on a replay at other conditions."""
+    keep = getattr(tech, "keep_drawn", None)
+    return keep(*values) if keep is not None else values
+
+
 class Recording:
-    """The nominal technology, noting every width it draws for a sizing question."""
+    """The nominal technology, noting every width it draws for a sizing question (and whatever else a build
+    asks it to keep, see `kept`)."""
 
     def __init__(self, tech: Technology):
         self._tech = tech
@@ -37,6 +46,11 @@ class Recording:
         drawn = self._tech.quantize_width(w)
         self.widths.append(drawn)
         return drawn
+
+    def keep_drawn(self, *values):
+        values = kept(self._tech, *values)      # a view under this one (a replay) may hold them already
+        self.widths.extend(values)
+        return values
 
 
 class Replaying:
@@ -63,6 +77,9 @@ class Replaying:
 
     def quantize_width(self, w):
         return self._drawn()
+
+    def keep_drawn(self, *values):
+        return tuple(self._drawn() for _ in values)
 
 
 class SameGeometry:

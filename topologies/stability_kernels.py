@@ -20,6 +20,7 @@ from .loop_kernels import _clip01, _lu_solve, _modal, _modal_grid
 TWO_PI = 2.0 * np.pi
 GOLDEN = (math.sqrt(5.0) - 1.0) / 2.0
 DEGREES = 180.0 / np.pi
+CROSSOVER_STEPS = 10     # Illinois steps placing the crossover inside its grid step
 
 
 def _loop(r0, r1, lam, d, beta, tau, f):
@@ -127,15 +128,20 @@ def phase_reading(r0, r1, lam, beta, tau, t0, grid, logf):
         has_cross = last >= 0 and above[0]
         k = (last if has_cross else 0) + 1
         lo_f, hi_f, lo_m, hi_m = logf[k - 1], logf[k], math.log(mag[k - 1]), math.log(mag[k])
-        for _ in range(8):
+        moved = 0.0
+        for _ in range(CROSSOVER_STEPS):
             t = _clip01(lo_m / (1.0 if lo_m == hi_m else lo_m - hi_m))
             mid = lo_f + t * (hi_f - lo_f)
             re, im = _loop(r0, r1, lam, d, beta, tau, math.exp(mid))
             mid_m = math.log(math.hypot(re, im))
             if mid_m > 0:
-                lo_f, lo_m = mid, mid_m
+                if moved > 0:
+                    hi_m = 0.5 * hi_m
+                lo_f, lo_m, moved = mid, mid_m, 1.0
             else:
-                hi_f, hi_m = mid, mid_m
+                if moved < 0:
+                    lo_m = 0.5 * lo_m
+                hi_f, hi_m, moved = mid, mid_m, -1.0
         t = _clip01(lo_m / (1.0 if lo_m == hi_m else lo_m - hi_m))
         f_c = math.exp(lo_f + t * (hi_f - lo_f))
         phase_c, _ = _phase_near(r0, r1, lam, d, beta, tau, f_c, phase[k - 1])

@@ -11,6 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .base import Device, Variable, gm_id_variable, length_variable, snap_length
+from .geometry import kept
 from .process.base import Technology, diode_vgs
 
 
@@ -135,7 +136,10 @@ class GateGenerator:
         w = np.where(open_, w_floor, w)
         i = np.where(open_, w_floor * last_density, i)
         l = np.where(open_, length, l)
+        # The length and current are drawn from the model's answers: another corner (or output level)
+        # solves the same diode, not one redrawn for it.
         w = tech.quantize_width(w)
+        l, i = kept(tech, l, i)
         return cls(w, l, i, diode_vgs(tech, polarity, w, l, i))
 
 
