@@ -206,11 +206,6 @@ SLEW_OPEN = {
                             "recovery from the Miller capacitor's feedthrough kick (14.5 V/us decaying to 10 "
                             "V/us over 10 ns on tsm_008, model 10.8); the edges' 25-75 % slopes part the other "
                             "way and unevenly (rising 1.10-1.48x the model's slew rate, falling 0.65-0.91x)",
-    "generic180-cascodes": "measured ngspice/model 0.66-0.94 (median 0.89) over 8 designs since the cascode gate "
-                           "generators may be drawn long and the fronts reach lower currents: folded 0.87-0.92, "
-                           "telescopic 0.66 and 0.77 on its two lowest-power picks, 0.92-0.94 on the others. "
-                           "Not yet traced; the model's slew is the tail current into the output node alone, "
-                           "and a low-current telescopic has wide mirror devices whose gate node must slew too",
 }
 
 
