@@ -123,22 +123,29 @@ class GateGenerator:
         w_floor = np.maximum(tech.w_min, tech.quantize_width(tech.w_min))
         grid = tech.length_grid
         lengths = grid if grid is not None else snap_length(np.geomspace(tech.l_min, tech.l_max, 12), tech)
-        w, l, i = zero + np.nan, zero + np.nan, zero + i_ref
-        open_ = np.ones(zero.shape, bool)
-        for candidate in np.concatenate([[0.0], lengths[lengths > 0]]):
-            length = np.maximum(l_device, candidate) + zero
-            density = tech.current(polarity, 1.0, length, vgs_target + zero, vgs_target + zero, zero)
-            needed = i_ref / density
-            take = open_ & ~(needed < w_floor)       # a NaN width is taken as is: the design then fails
-            w, l, open_ = np.where(take, needed, w), np.where(take, length, l), open_ & ~take
-            last_density = density
+        i_ref, l_device, level = (np.broadcast_to(a, zero.shape) for a in (zero + i_ref, zero + l_device,
+                                                                          zero + vgs_target))
+        w, l, i = zero + np.nan, zero + np.nan, i_ref.copy()
+        last_density = zero + np.nan
+        open_ = np.arange(zero.size)
+        # Each design asks only until its diode is drawable; most are at the device's own length.
+        for candidate in np.concatenate([[0.0], lengths[lengths > np.nanmin(l_device, initial=np.inf)]]):
+            if open_.size == 0:
+                break
+            length = np.maximum(l_device[open_], candidate)
+            level_o = level[open_]
+            density = tech.current(polarity, 1.0, length, level_o, level_o, zero[open_])
+            needed = i_ref[open_] / density
+            take = ~(needed < w_floor)       # a NaN width is taken as is: the design then fails
+            w[open_[take]] = needed[take]
+            l[open_], last_density[open_] = length, density     # the still open keep their longest try
+            open_ = open_[~take]
         # Still open: even the longest drawable diode needs more than the reference current.
-        w = np.where(open_, w_floor, w)
-        i = np.where(open_, w_floor * last_density, i)
-        l = np.where(open_, length, l)
+        w[open_] = w_floor
+        i[open_] = w_floor * last_density[open_]
+        w = tech.quantize_width(w)
         # The length and current are drawn from the model's answers: another corner (or output level)
         # solves the same diode, not one redrawn for it.
-        w = tech.quantize_width(w)
         l, i = kept(tech, l, i)
         return cls(w, l, i, diode_vgs(tech, polarity, w, l, i))
 
