@@ -72,9 +72,20 @@ def run(study: Path = typer.Argument(..., help="study file (TOML)"),
         raise typer.Exit(3)
     _say(f"{summary.front_designs} front designs from {summary.evaluations:,} evaluated in {summary.wall_s:.1f} s "
          f"-> {summary.out / 'report.html'}")
-    shown = [f"{n} {v:.4f}" for n, v in summary.hypervolume.items() if v == v]
+    shown = [f"{n} {v:.4f}" + _late(summary.searched.get(n)) for n, v in summary.hypervolume.items() if v == v]
     if shown:
         _say("hypervolume on the study's window (1 = its ideal corner): " + ", ".join(shown))
+
+
+def _late(record: dict | None) -> str:
+    """How much of a front its search won in its last quarter, beside its hypervolume: a large share says the
+    budget, not the model, ended it."""
+    from ampfront.optimize.search.growth import Growth
+
+    grown = Growth.from_record((record or {}).get("growth"))
+    if grown is None or grown.late_gain != grown.late_gain:
+        return ""
+    return f" (+{100 * grown.late_gain:.1f} % in its last quarter)"
 
 
 @app.command()

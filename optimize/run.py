@@ -102,11 +102,8 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
     summary = RunSummary(final, tech.name, study.seed, evaluations, len(table) if fronts else 0, 0.0, misses)
     summary.rejected = {n: o.rejected for n, o in outcomes.items()}
     summary.hypervolume = {f.name: f.hypervolume for f in fronts}
-    summary.searched = {n: {"evaluations": o.evaluations, "generations": len(o.history), "stopped": o.stopped}
-                        for n, o in outcomes.items()}
-    summary.warnings += [f"{n}: the search reached its budget ({study.budget:,} evaluations) before its front "
-                         "settled; a larger [search] budget may improve it"
-                         for n, o in outcomes.items() if o.stopped == "budget"]
+    summary.searched = {n: _searched(o) for n, o in outcomes.items()}
+    summary.warnings += [w for n, o in outcomes.items() if (w := _unsettled(n, o, study.budget))]
     if tech.models_missing:
         summary.warnings.append(f"testbenches cannot run yet: {tech.models_missing}")
     summary.piles = [p for f in fronts for p in f.piles]
@@ -128,6 +125,30 @@ def run_study(study_path: Path, out: Path, seed: int | None = None,
         write_json(stage / "manifest.json", manifest)
     summary.wall_s = time.perf_counter() - started
     return summary
+
+
+def _searched(outcome) -> dict:
+    """The manifest's record of one topology's search: its size, why it ended, and how its front grew."""
+    record = {"evaluations": outcome.evaluations, "generations": len(outcome.history), "stopped": outcome.stopped}
+    grown = getattr(outcome, "growth", None)
+    if grown is not None:
+        record["growth"] = grown.record()
+    return record
+
+
+def _unsettled(name: str, outcome, budget: int | None) -> str | None:
+    """The warning for a front the search left growing: stopped at its budget, or still adding much in the
+    last quarter of its evaluations whatever the stop rule said (search/growth.py)."""
+    grown = getattr(outcome, "growth", None)
+    late = (f" (the last quarter of its evaluations added {100 * grown.late_gain:.0f} % of its hypervolume)"
+            if grown is not None and grown.still_growing else "")
+    if outcome.stopped == "budget":
+        return (f"{name}: the search reached its budget ({budget:,} evaluations) before its front settled{late}; "
+                "a larger [search] budget may improve it")
+    if late:
+        return (f"{name}: the front was still growing when its search stopped{late}; a larger [search] budget "
+                "may improve it")
+    return None
 
 
 def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:

@@ -246,3 +246,56 @@ def test_a_hostile_title_renders_as_text(browser, hostile_run):
         assert not opened.dialogs
     finally:
         opened.close()
+
+
+CONVERGING = """
+title = "Converging study"
+topologies = ["simple_ota", "two_stage_miller"]
+objectives = ["power", "gbw"]
+technology = "generic180"
+
+[spec]
+supply = "1.8 V"
+load_capacitance = "2 pF"
+min_gain = "40 dB"
+
+[search]
+population = 40
+budget = 4000
+"""
+
+
+@pytest.fixture(scope="module")
+def converging_run(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("converging")
+    (folder / "study.toml").write_text(CONVERGING)
+    summary = run_study(folder / "study.toml", folder / "out")
+    assert summary.feasible
+    return folder / "out"
+
+
+def _convergence_lines(folder: Path, browser) -> int:
+    opened = Opened(browser, folder)
+    try:
+        assert not opened.errors and not opened.outside
+        plot = opened.page.locator("#plot-convergence")
+        plot.scroll_into_view_if_needed()
+        assert _painted(plot.screenshot()) > 0.02, "the convergence plot is blank"
+        return opened.page.evaluate(LINES, "plot-convergence")
+    finally:
+        opened.close()
+
+
+def test_a_converging_run_draws_how_each_front_grew(browser, converging_run):
+    import json
+
+    from ampfront.optimize.outputs.refresh import refresh
+
+    searched = json.loads((converging_run / "manifest.json").read_text())["convergence"]["topologies"]
+    curves = [n for n, r in searched.items() if r.get("growth", {}).get("evaluations")]
+    assert curves, searched
+    # One line a topology whose search met the spec, drawn by plotly.js in the browser.
+    assert _convergence_lines(converging_run, browser) == len(curves)
+    # Written again from the folder alone, the page still draws them (the curve rides in the manifest).
+    refresh(converging_run)
+    assert _convergence_lines(converging_run, browser) == len(curves)

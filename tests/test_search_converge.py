@@ -195,8 +195,12 @@ def test_run_records_why_each_search_stopped(tmp_path):
     assert record["topologies"]["two_stage_miller"]["stopped"] == "converged"
     assert not any("budget" in w for w in settled.warnings)
     record = json.loads((tmp_path / "b" / "manifest.json").read_text())["convergence"]
-    assert record["topologies"]["two_stage_miller"] == {"evaluations": short.evaluations, "generations": 20,
-                                                        "stopped": "budget"}
+    searched = record["topologies"]["two_stage_miller"]
+    assert {k: searched[k] for k in ("evaluations", "generations", "stopped")} == {
+        "evaluations": short.evaluations, "generations": 20, "stopped": "budget"}
+    # The curve is the genetic search's, generation by generation: before the ends were searched.
+    assert len(searched["growth"]["evaluations"]) == 20
+    assert searched["growth"]["evaluations"][-1] < short.evaluations
     assert any("reached its budget (2,000 evaluations)" in w for w in short.warnings)
     assert short.front_designs == 12
     assert "ran its generations" not in (tmp_path / "b" / "report.html").read_text()

@@ -15,6 +15,7 @@ from ampfront.optimize.outputs.checked import read_check
 from ampfront.optimize.outputs.folder import CLOSEST, MANIFEST, write_text_atomic
 from ampfront.optimize.outputs.summary import RunSummary
 from ampfront.optimize.outputs.tables import design_vectors
+from ampfront.optimize.search.growth import Growth
 from ampfront.optimize.search.outcome import Infeasible, Rejections
 from ampfront.topologies.errors import InputError
 
@@ -46,7 +47,10 @@ def refresh(folder: Path) -> Path:
         # A manifest is a file: only whole numbers and a known reason reach the report.
         if (isinstance(record, dict) and isinstance(record.get("evaluations"), int)
                 and isinstance(record.get("generations"), int) and record.get("stopped") in report.STOP_PHRASES):
-            summary.searched[name] = record
+            summary.searched[name] = {k: record[k] for k in ("evaluations", "generations", "stopped")}
+            grown = Growth.from_record(record.get("growth"))
+            if grown is not None:
+                summary.searched[name]["growth"] = grown.record()
     for name, record in (manifest.get("rejected_by_stability") or {}).items():
         if isinstance(record, dict):
             summary.rejected[name] = Rejections.from_record(record)

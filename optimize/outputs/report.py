@@ -19,6 +19,7 @@ from plotly.offline import get_plotlyjs
 from ampfront.optimize.outputs.checked import agreement_html
 from ampfront.optimize.outputs import cards, plots
 from ampfront.optimize.outputs.knee import KNEE_NAME
+from ampfront.optimize.outputs.growth_plot import growth_figure, growths, late_phrase
 from ampfront.optimize.outputs.summary import RunSummary
 from ampfront.optimize.outputs.spread import corner_spread_html
 from ampfront.optimize.outputs.verdict import Verdict, flag, sentence_axes, verdict
@@ -78,9 +79,11 @@ def _facts(study: Study, summary) -> list[tuple[str, str]]:
             f"{n} {v:.4f}" for n, v in summary.hypervolume.items() if math.isfinite(v))))
     if summary.searched:
         # Why each search ended: a front that stopped on the budget may not have converged.
+        curves = growths(summary.searched)
         facts.append(("search per topology", "; ".join(
             f"{n}: {STOP_PHRASES.get(r['stopped'], r['stopped'])} after {int(r['generations']):,} generations "
-            f"({int(r['evaluations']):,} designs)" for n, r in summary.searched.items())))
+            f"({int(r['evaluations']):,} designs)" + (f", {late_phrase(curves[n])}" if n in curves else "")
+            for n, r in summary.searched.items())))
     facts += [("warning", w) for w in summary.warnings]
     return facts
 
@@ -115,6 +118,19 @@ def _verdict_html(v: Verdict, objectives, feasible: bool) -> str:
               "“Binds”: for a topology that meets the spec, the spec line most of its front presses against; "
               "for one that does not, what its closest design misses and by how much. Designs the stability "
               "rules refused are counted over every design the search evaluated.</p>")
+
+
+def _growth_html(summary, titles: dict[str, str], order) -> str:
+    fig = growth_figure(summary.searched, summary.hypervolume, titles, order)
+    if fig is None:
+        return ""
+    return ("<section id='growth'><h2>Convergence</h2><p>Each front's hypervolume on the study's window as the "
+            "genetic search went on, as a share of the front as written (marked at the end: each objective's end "
+            "then searched alone, the front thinned; the hover gives the hypervolume itself). On logarithmic "
+            "evaluations a line still climbing where it ends says a larger <code>[search] budget</code> would "
+            "raise that front (a steady climb there, about 8 times its last quarter's gain from a run ten times "
+            "as long); a flat one, that the model has little more to give.</p>"
+            + figure_html(fig, "convergence") + "</section>")
 
 
 def _markers_text(feasible: bool) -> str:
@@ -215,6 +231,7 @@ shown. Click a design for its figures.</p>
 {agreement_html(check, titles)}
 <div class="cols"><section><h2>Spec</h2><table id="spec">{spec}</table></section>
 <section><h2>Search</h2><ul>{facts}</ul></section></div>
+{_growth_html(summary, titles, study.topologies)}
 <h2>All designs</h2>{_designs_table(df, titles)}
 <script type="application/json" id="design-data">{_selection_data(df, titles, with_card)}</script>
 <script type="text/javascript">{_SCRIPT}</script>

@@ -39,6 +39,7 @@ class Converged:
     generations: int
     history: list[tuple[int, int, float]] = field(default_factory=list)
     stopped: str = ""              # "converged" or "budget"
+    spent_at: list[int] = field(default_factory=list)   # evaluations spent when each history entry was taken
 
 
 def _evaluate(problem, U: np.ndarray):
@@ -82,7 +83,7 @@ def converge(problem, population: int, budget: int, seed: int,
     distance = op.crowding(F, rank)
     archive_U, archive_F = np.empty((0, n)), np.empty((0, F.shape[1]))
     measure = hypervolume
-    history, watch = [], []
+    history, watch, spent_at = [], [], []
     generation, stopped, tries, start = 0, "budget", 0, 0
     explored = False
     while True:
@@ -96,12 +97,16 @@ def converge(problem, population: int, budget: int, seed: int,
             if len(archive_F) > ARCHIVE * population:
                 keep = op.thin(archive_F, ARCHIVE * population)
                 archive_U, archive_F = archive_U[keep], archive_F[keep]
+        if len(archive_F):
+            # The archive's, even in a generation whose population holds no feasible design (the fresh one
+            # after an exploring restart): the front found so far is not lost by it.
             if measure is None:
                 measure = _generic_hypervolume(archive_F)
             score = measure(archive_F)
         else:
             score = -float(cv.min())           # below every feasible score
         history.append((generation, int(feasible.sum()), max(score, 0.0)))
+        spent_at.append(spent)
         if progress:
             progress(*history[-1])
         watch.append((bool(len(archive_F)), score))
@@ -144,10 +149,10 @@ def converge(problem, population: int, budget: int, seed: int,
         U, F, V, cv = merged_U[chosen], merged_F[chosen], merged_V[chosen], merged_cv[chosen]
     if len(archive_F):
         X = problem.xl + archive_U * (problem.xu - problem.xl)
-        return Converged(X, archive_F, True, spent, generation, history, stopped)
+        return Converged(X, archive_F, True, spent, generation, history, stopped, spent_at)
     order = np.argsort(cv, kind="stable")[:10]
     X = problem.xl + U[order] * (problem.xu - problem.xl)
-    return Converged(X, F[order], False, spent, generation, history, stopped)
+    return Converged(X, F[order], False, spent, generation, history, stopped, spent_at)
 
 
 def _stalled(watch: list[tuple[bool, float]]) -> bool:

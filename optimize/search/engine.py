@@ -19,6 +19,7 @@ from pymoo.util.ref_dirs import get_reference_directions
 
 from ampfront.optimize.search import operators
 from ampfront.optimize.search.converge import converge
+from ampfront.optimize.search.growth import Growth, growth
 from ampfront.optimize.search.refine import refine, search_ends
 
 # The converging search's ends: once the genetic search has stalled, each objective alone by differential
@@ -81,6 +82,9 @@ class SearchResult:
     refined: int = 0       # evaluations the refinement spent (included in `evaluations`)
     generations: int = 0   # generations run
     stopped: str = "generations"   # why the search ended: "generations", "converged" or "budget"
+    # The converging search's hypervolume on the study's window, generation by generation (None: a fixed run, or
+    # no window to measure on).
+    growth: Growth | None = None
 
 
 def run_search(problem: Problem, population: int, generations: int | None, seed: int,
@@ -107,8 +111,11 @@ def run_search(problem: Problem, population: int, generations: int | None, seed:
             # The bar ends on the front as written (thinned, ends polished), the figure the run then prints.
             generation, feasible, score = found.history[-1]
             progress(generation, feasible, hypervolume(F) if found.feasible and hypervolume else score, done=True)
-        return _finish(problem, X, F, found.feasible, found.history, evaluations, refine_steps, seed,
-                       found.generations, found.stopped, ends_searched=True)
+        result = _finish(problem, X, F, found.feasible, found.history, evaluations, refine_steps, seed,
+                         found.generations, found.stopped, ends_searched=True)
+        if hypervolume is not None and found.feasible:
+            result.growth = growth(found.spent_at, found.history)
+        return result
     tracker = _Tracker(progress)
     res = minimize(problem, algorithm_for(problem.n_obj, population), ("n_gen", generations),
                    seed=seed, callback=tracker, verbose=False)

@@ -87,6 +87,7 @@ class TopologyFront:
     hypervolume: float = float("nan")   # on the study's fixed window (search/hypervolume.py)
     refined: int = 0                    # evaluations the refinement spent
     stopped: str = ""                   # why the search ended: converged, budget or generations
+    growth: object = None               # search.growth.Growth of a converging search, else None
 
 
 @dataclass

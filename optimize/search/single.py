@@ -70,7 +70,7 @@ def search_topology(study: Study, tech, name: str, progress: Progress | None) ->
     if result.feasible:
         return TopologyFront(name, table, build, result.evaluations, result.history, piles(name, problem, result.X),
                              corners, problem.rejections(), window.hypervolume(result.F), result.refined,
-                             result.stopped)
+                             result.stopped, result.growth)
     # The closest design: least total normalized violation (the search's own measure).
     violations = np.column_stack([np.nan_to_num(np.maximum(c.violation(metrics), 0), nan=1e9)
                                   for c in study.constraints])

@@ -1,0 +1,97 @@
+"""How a converging search's front grew (optimize/search/growth.py): the curve the report draws and the late gain
+the run warns on.
+
+References: pymoo's ZDT1 with its analytic Pareto front (`ZDT1().pareto_front()`) and pymoo's hypervolume
+indicator, which the curve must agree with on the archive the search returns; the late gain of curves whose
+growth is known in closed form (a logarithmic creep, a front that has settled).
+"""
+
+import math
+
+import numpy as np
+import pytest
+from pymoo.indicators.hv import HV
+from pymoo.problems import get_problem
+
+from ampfront.optimize.search.converge import converge
+from ampfront.optimize.search.engine import run_search
+from ampfront.optimize.search.growth import LATE, POINTS, STILL_GROWING, Growth, growth, late_gain
+
+REFERENCE = np.array([1.1, 1.1])
+
+
+def test_a_logarithmic_creep_reads_its_closed_form_share():
+    # The demo's telescopic cascode, seed 1 (README, Convergence): 0.00743 at 100,000 evaluations and 0.01216 at
+    # 1,000,000, the curve between close to a straight line in log evaluations.
+    evaluations = np.arange(200, 100_001, 200)
+    b = (0.01216 - 0.00743) / np.log(10)
+    hv = 0.00743 + b * np.log(evaluations / 100_000)
+    start = evaluations[np.searchsorted(evaluations, evaluations[-1] * (1 - LATE))]
+    expected = b * np.log(evaluations[-1] / start) / hv[-1]
+    assert late_gain(evaluations, hv) == pytest.approx(expected, rel=1e-12)
+    # And such a front is called still growing: ten times the run would add about ln 10 / ln (4/3) times it.
+    assert expected > STILL_GROWING
+
+
+def test_a_settled_front_reads_no_late_gain_and_an_empty_one_none():
+    evaluations = np.arange(200, 60_001, 200)
+    hv = np.minimum(evaluations / 20_000, 1.0) * 0.09
+    assert late_gain(evaluations, hv) == 0.0
+    assert math.isnan(late_gain(evaluations, np.zeros(len(evaluations))))
+    assert math.isnan(late_gain([], []))
+
+
+def test_the_curve_is_thinned_keeping_both_ends():
+    history = [(g, 10, 0.001 * g) for g in range(1, 1001)]
+    spent = [100 * g for g in range(1, 1001)]
+    grown = growth(spent, history)
+    assert len(grown.evaluations) == POINTS
+    assert grown.evaluations[0] == 100 and grown.evaluations[-1] == 100_000
+    assert grown.hypervolume[-1] == pytest.approx(1.0)
+    # The late gain is read on the whole curve, before thinning.
+    assert grown.late_gain == pytest.approx(late_gain(spent, [h[2] for h in history]))
+
+
+@pytest.mark.parametrize("record", [
+    None, "growth", {"evaluations": [1, 2], "hypervolume": [0.1]},
+    {"evaluations": [1, "2"], "hypervolume": [0.1, 0.2], "late_gain": 0.1},
+    {"evaluations": [1, 2], "hypervolume": [0.1, float("nan")], "late_gain": 0.1},
+    {"evaluations": [True, 2], "hypervolume": [0.1, 0.2], "late_gain": 0.1},
+    {"evaluations": [1, 2], "hypervolume": [0.1, 0.2], "late_gain": "much"},
+])
+def test_a_manifest_record_that_is_not_a_curve_is_refused(record):
+    assert Growth.from_record(record) is None
+
+
+def test_a_record_reads_back_as_written():
+    grown = growth([100, 200, 300, 400], [(1, 5, 0.1), (2, 5, 0.2), (3, 5, 0.25), (4, 5, 0.3)])
+    again = Growth.from_record(grown.record())
+    assert again.evaluations == grown.evaluations
+    assert again.hypervolume == pytest.approx(grown.hypervolume, abs=1e-6)
+    assert again.late_gain == pytest.approx(grown.late_gain, abs=1e-4)
+
+
+def test_the_curve_agrees_with_pymoo_on_zdt1():
+    problem = get_problem("zdt1")
+    indicator = HV(ref_point=REFERENCE)
+    found = converge(problem, population=100, budget=20_000, seed=3, hypervolume=indicator)
+    assert found.feasible and len(found.spent_at) == len(found.history)
+    # Each point is taken when that many designs have been evaluated, never more than the search spent.
+    assert np.all(np.diff(found.spent_at) > 0) and found.spent_at[-1] <= found.evaluations
+    # The last point is the returned archive's hypervolume, by pymoo's own indicator.
+    assert found.history[-1][2] == pytest.approx(indicator(found.F), rel=1e-12)
+    # The archive only improves (its thinning aside), and reaches the analytic front's hypervolume.
+    values = np.array([h[2] for h in found.history])
+    assert np.all(np.diff(values) >= -0.01 * values[-1])
+    assert values[-1] >= 0.98 * indicator(problem.pareto_front())
+
+
+def test_run_search_carries_the_genetic_search_s_curve():
+    problem = get_problem("zdt1")
+    indicator = HV(ref_point=REFERENCE)
+    result = run_search(problem, 100, None, 3, budget=20_000, hypervolume=indicator, front_designs=50)
+    assert result.growth is not None
+    # The curve ends where the genetic search did; the ends searched after it spent more.
+    assert result.growth.evaluations[-1] < result.evaluations
+    fixed = run_search(problem, 100, 20, 3)
+    assert fixed.growth is None
