@@ -137,18 +137,15 @@ def _searched(outcome) -> dict:
 
 
 def _unsettled(name: str, outcome, budget: int | None) -> str | None:
-    """The warning for a front the search left growing: stopped at its budget, or still adding much in the
-    last quarter of its evaluations whatever the stop rule said (search/growth.py)."""
+    """The warning for a front its search left growing: one that reached its budget (a converging search does
+    not stop while its last quarter of evaluations still adds more than growth.STILL_GROWING)."""
+    if outcome.stopped != "budget":
+        return None
     grown = getattr(outcome, "growth", None)
-    late = (f" (the last quarter of its evaluations added {100 * grown.late_gain:.0f} % of its hypervolume)"
-            if grown is not None and grown.still_growing else "")
-    if outcome.stopped == "budget":
-        return (f"{name}: the search reached its budget ({budget:,} evaluations) before its front settled{late}; "
-                "a larger [search] budget may improve it")
-    if late:
-        return (f"{name}: the front was still growing when its search stopped{late}; a larger [search] budget "
-                "may improve it")
-    return None
+    late = ("" if grown is None or grown.late_gain != grown.late_gain else
+            f" (the last quarter of its evaluations added {100 * grown.late_gain:.1f} % of its hypervolume)")
+    return (f"{name}: the search reached its budget ({budget:,} evaluations) before its front settled{late}; "
+            "a larger [search] budget may improve it")
 
 
 def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:

@@ -95,3 +95,21 @@ def test_run_search_carries_the_genetic_search_s_curve():
     assert result.growth.evaluations[-1] < result.evaluations
     fixed = run_search(problem, 100, 20, 3)
     assert fixed.growth is None
+
+
+def test_a_front_that_still_creeps_is_not_called_converged():
+    """A front growing as generations**0.1 gains under 0.5 % over every 30 generations past the 600th (the
+    stall rule's window), but 1 - 0.75**0.1 = 2.8 % over every last quarter: the search runs to its budget
+    where the stall rule alone stopped it. A flat one still stops at its first stalls."""
+    problem = get_problem("zdt1")
+    calls = []
+
+    def creep(F):
+        calls.append(1)
+        return len(calls) ** 0.1
+
+    creeping = converge(problem, population=50, budget=50 * 1_200, seed=1, hypervolume=creep)
+    assert creeping.stopped == "budget" and creeping.generations >= 1_200
+    assert late_gain(creeping.spent_at, [h[2] for h in creeping.history]) > STILL_GROWING
+    flat = converge(problem, population=50, budget=50 * 1_200, seed=1, hypervolume=lambda F: 1.0)
+    assert flat.stopped == "converged" and flat.evaluations < 10_000

@@ -1,6 +1,7 @@
 """The default search: NSGA-II on whole populations as arrays (operators.py), an archive of every feasible
-non-dominated design it meets, stopped when the archive's hypervolume has stopped growing or the study's
-budget of evaluations is spent. Deterministic: every random number comes from one generator seeded by the study.
+non-dominated design it meets, stopped when the archive's hypervolume has stopped growing (over the last
+PATIENCE generations, and by no more than growth.STILL_GROWING over the last quarter of its evaluations) or the
+study's budget of evaluations is spent. Deterministic: every random number comes from one generator seeded by the study.
 
 Why not pymoo's loop: pymoo keeps a Python object per design, which costs more than the model itself
 (110-290 µs a design by `ampfront bench`, against 55-70 µs for a SKY130 evaluation), and the model is cheaper
@@ -19,6 +20,7 @@ from typing import Callable
 import numpy as np
 
 from ampfront.optimize.search import operators as op
+from ampfront.optimize.search.growth import STILL_GROWING, late_gain
 
 STALL = 0.005        # the archive's hypervolume grew by less than this share ...
 PATIENCE = 30        # ... over this many generations: converged
@@ -135,7 +137,11 @@ def converge(problem, population: int, budget: int, seed: int,
                 distance = op.crowding(F, rank)
                 watch.clear()
                 continue
-            if stall:
+            # A stall over PATIENCE generations is not the end of a front that still creeps: one that won more
+            # than STILL_GROWING over the last quarter of its evaluations keeps going (measured on the demo's
+            # telescopic cascode: the short window alone stopped three seeds of five whose last quarters had
+            # added 2.6-2.9 %, and a 10x run beat its fronts by 30-60 %).
+            if stall and not late_gain(spent_at, [h[2] for h in history]) > STILL_GROWING:
                 stopped = "converged"
                 break
         if spent + population > budget:
