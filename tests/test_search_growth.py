@@ -113,3 +113,40 @@ def test_a_front_that_still_creeps_is_not_called_converged():
     assert late_gain(creeping.spent_at, [h[2] for h in creeping.history]) > STILL_GROWING
     flat = converge(problem, population=50, budget=50 * 1_200, seed=1, hypervolume=lambda F: 1.0)
     assert flat.stopped == "converged" and flat.evaluations < 10_000
+
+
+CONVERGING = """
+title = "Tiny converging study"
+topologies = ["two_stage_miller"]
+objectives = ["power", "gbw"]
+technology = "generic180"
+
+[spec]
+supply = "1.8 V"
+load_capacitance = "2 pF"
+min_gain = "60 dB"
+min_gbw = "2 MHz"
+
+[search]
+seed = 4
+population = 40
+budget = 3000
+"""
+
+
+def test_the_terminal_gives_each_front_s_late_gain_and_the_budget_it_hit(tmp_path):
+    import json
+
+    from .clirun import ampfront
+
+    (tmp_path / "study.toml").write_text(CONVERGING)
+    proc = ampfront("run", tmp_path / "study.toml", "--out", tmp_path / "out")
+    assert proc.returncode == 0, proc.stderr
+    record = json.loads((tmp_path / "out" / "manifest.json").read_text())["convergence"]["topologies"]
+    grown = Growth.from_record(record["two_stage_miller"]["growth"])
+    line = next(x for x in proc.stderr.splitlines() if x.startswith("hypervolume on the study's window"))
+    assert "two_stage_miller " in line and f"(+{100 * grown.late_gain:.1f} % in its last quarter)" in line
+    # 3,000 evaluations end this search before any stall: the warning names the budget and the late gain.
+    assert record["two_stage_miller"]["stopped"] == "budget"
+    assert ("reached its budget (3,000 evaluations) before its front settled (the last quarter of its "
+            f"evaluations added {100 * grown.late_gain:.1f} % of its hypervolume)") in proc.stderr
