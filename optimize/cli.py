@@ -83,9 +83,7 @@ def _late(record: dict | None) -> str:
     from ampfront.optimize.search.growth import Growth
 
     grown = Growth.from_record((record or {}).get("growth"))
-    if grown is None or grown.late_gain != grown.late_gain:
-        return ""
-    return f" (+{100 * grown.late_gain:.1f} % in its last quarter)"
+    return f" ({grown.share()} in its last quarter)" if grown is not None and grown.share() else ""
 
 
 @app.command()

@@ -19,6 +19,7 @@ from ampfront.optimize.outputs.summary import RunSummary
 from ampfront.optimize.outputs.tables import device_table, versions, write_json
 from ampfront.optimize.search.engine import Progress
 from ampfront.optimize.search.hypervolume import window_for
+from ampfront.optimize.search.growth import STILL_GROWING
 from ampfront.optimize.search.merge import merged_front
 from ampfront.optimize.spec.corners import corner_set
 from ampfront.optimize.search.outcome import Infeasible, Outcome, TopologyFront
@@ -137,15 +138,18 @@ def _searched(outcome) -> dict:
 
 
 def _unsettled(name: str, outcome, budget: int | None) -> str | None:
-    """The warning for a front its search left growing: one that reached its budget (a converging search does
-    not stop while its last quarter of evaluations still adds more than growth.STILL_GROWING)."""
+    """The warning for a search its budget ended: with its late gain, which says whether the front was still
+    growing (a converging search does not stop while that exceeds growth.STILL_GROWING) or nearly settled."""
     if outcome.stopped != "budget":
         return None
     grown = getattr(outcome, "growth", None)
-    late = ("" if grown is None or grown.late_gain != grown.late_gain else
-            f" (the last quarter of its evaluations added {100 * grown.late_gain:.1f} % of its hypervolume)")
-    return (f"{name}: the search reached its budget ({budget:,} evaluations) before its front settled{late}; "
-            "a larger [search] budget may improve it")
+    head = f"{name}: the search reached its budget ({budget:,} evaluations)"
+    if grown is None or not grown.share():
+        return f"{head} before its front settled; a larger [search] budget may improve it"
+    late = f"the last quarter of its evaluations added {grown.share()} of its hypervolume"
+    if grown.late_gain > STILL_GROWING:
+        return f"{head} with its front still growing ({late}); a larger [search] budget may improve it"
+    return f"{head} before its stop rule was met; {late}, so a larger budget would change that front little"
 
 
 def _manifest(study: Study, tech, summary: RunSummary, wall: float) -> dict:

@@ -299,3 +299,28 @@ def test_a_converging_run_draws_how_each_front_grew(browser, converging_run):
     # Written again from the folder alone, the page still draws them (the curve rides in the manifest).
     refresh(converging_run)
     assert _convergence_lines(converging_run, browser) == len(curves)
+
+
+@pytest.mark.parametrize("change", ["removed", "tampered"])
+def test_a_folder_without_a_curve_or_with_a_tampered_one_draws_none(converging_run, tmp_path, change):
+    """An older folder (no curve in its manifest) and a hand-edited one are written again without the section:
+    the manifest's curve is read through Growth.from_record, never passed on as it stands."""
+    import json
+
+    from ampfront.optimize.outputs.refresh import refresh
+
+    folder = tmp_path / "copy"
+    shutil.copytree(converging_run, folder)
+    path = folder / "manifest.json"
+    manifest = json.loads(path.read_text())
+    for record in manifest["convergence"]["topologies"].values():
+        if "growth" not in record:
+            continue
+        if change == "removed":
+            del record["growth"]
+        else:
+            record["growth"]["evaluations"] = [XSS] * len(record["growth"]["evaluations"])
+    path.write_text(json.dumps(manifest))
+    page = refresh(folder).read_text(encoding="utf-8")
+    assert "plot-convergence" not in page and XSS not in page
+    assert "search per topology" in page

@@ -10,6 +10,7 @@ import math
 
 import numpy as np
 import pytest
+from pymoo.core.problem import Problem
 from pymoo.indicators.hv import HV
 from pymoo.problems import get_problem
 
@@ -26,8 +27,9 @@ def test_a_logarithmic_creep_reads_its_closed_form_share():
     evaluations = np.arange(200, 100_001, 200)
     b = (0.01216 - 0.00743) / np.log(10)
     hv = 0.00743 + b * np.log(evaluations / 100_000)
-    start = evaluations[np.searchsorted(evaluations, evaluations[-1] * (1 - LATE))]
-    expected = b * np.log(evaluations[-1] / start) / hv[-1]
+    # The last quarter exactly: from 75,000 to 100,000 evaluations.
+    assert LATE == 0.25
+    expected = b * np.log(4 / 3) / hv[-1]
     assert late_gain(evaluations, hv) == pytest.approx(expected, rel=1e-12)
     # And such a front is called still growing: ten times the run would add about ln 10 / ln (4/3) times it.
     assert expected > STILL_GROWING
@@ -45,8 +47,11 @@ def test_the_curve_is_thinned_keeping_both_ends():
     history = [(g, 10, 0.001 * g) for g in range(1, 1001)]
     spent = [100 * g for g in range(1, 1001)]
     grown = growth(spent, history)
-    assert len(grown.evaluations) == POINTS
+    assert len(grown.evaluations) <= POINTS
     assert grown.evaluations[0] == 100 and grown.evaluations[-1] == 100_000
+    # Dense enough at both ends of a logarithmic axis: points in the first decade and in the last half.
+    kept = np.asarray(grown.evaluations)
+    assert (kept <= 1_000).sum() >= 5 and (kept >= 50_000).sum() >= 20
     assert grown.hypervolume[-1] == pytest.approx(1.0)
     # The late gain is read on the whole curve, before thinning.
     assert grown.late_gain == pytest.approx(late_gain(spent, [h[2] for h in history]))
@@ -58,9 +63,25 @@ def test_the_curve_is_thinned_keeping_both_ends():
     {"evaluations": [1, 2], "hypervolume": [0.1, float("nan")], "late_gain": 0.1},
     {"evaluations": [True, 2], "hypervolume": [0.1, 0.2], "late_gain": 0.1},
     {"evaluations": [1, 2], "hypervolume": [0.1, 0.2], "late_gain": "much"},
+    {"evaluations": [1, 2], "hypervolume": [0.1, 0.2], "late_gain": True},
+    {"evaluations": [1, 2], "hypervolume": [0.1, 0.2], "late_gain": -5.0},
+    {"evaluations": [1, 10**400], "hypervolume": [0.1, 0.2], "late_gain": 0.1},
+    {"evaluations": [1, 10**20], "hypervolume": [0.1, 0.2], "late_gain": 0.1},
+    {"evaluations": [-5, 2], "hypervolume": [0.1, 0.2], "late_gain": 0.1},
+    {"evaluations": [2, 2], "hypervolume": [0.1, 0.2], "late_gain": 0.1},
+    {"evaluations": [1, 2], "hypervolume": [0.1, 2.0], "late_gain": 0.1},
+    {"evaluations": [1, 2], "hypervolume": [0.1, 10**400], "late_gain": 0.1},
+    {"evaluations": [], "hypervolume": [], "late_gain": None},
+    {"evaluations": list(range(1, POINTS + 2)), "hypervolume": [0.1] * (POINTS + 1), "late_gain": 0.0},
 ])
 def test_a_manifest_record_that_is_not_a_curve_is_refused(record):
     assert Growth.from_record(record) is None
+
+
+def test_a_late_gain_is_printed_with_its_sign():
+    assert Growth((100, 200), (0.5, 0.499), -0.002).share() == "-0.2 %"
+    assert Growth((100, 200), (0.4, 0.5), 0.2).share() == "+20.0 %"
+    assert Growth((100,), (0.0,), math.nan).share() == ""
 
 
 def test_a_record_reads_back_as_written():
@@ -145,8 +166,32 @@ def test_the_terminal_gives_each_front_s_late_gain_and_the_budget_it_hit(tmp_pat
     record = json.loads((tmp_path / "out" / "manifest.json").read_text())["convergence"]["topologies"]
     grown = Growth.from_record(record["two_stage_miller"]["growth"])
     line = next(x for x in proc.stderr.splitlines() if x.startswith("hypervolume on the study's window"))
-    assert "two_stage_miller " in line and f"(+{100 * grown.late_gain:.1f} % in its last quarter)" in line
+    assert "two_stage_miller " in line and f"({grown.share()} in its last quarter)" in line
     # 3,000 evaluations end this search before any stall: the warning names the budget and the late gain.
     assert record["two_stage_miller"]["stopped"] == "budget"
-    assert ("reached its budget (3,000 evaluations) before its front settled (the last quarter of its "
-            f"evaluations added {100 * grown.late_gain:.1f} % of its hypervolume)") in proc.stderr
+    warning = next(x for x in proc.stderr.splitlines() if "reached its budget (3,000 evaluations)" in x)
+    assert f"the last quarter of its evaluations added {grown.share()} of its hypervolume" in warning
+    assert ("still growing" in warning) == (grown.late_gain > STILL_GROWING)
+
+
+class _NarrowlyFeasible(Problem):
+    """Feasible where x0 < 0.01 only: a fresh random population of 20 usually holds no feasible design."""
+
+    def __init__(self):
+        super().__init__(n_var=2, n_obj=2, n_ieq_constr=1, xl=np.zeros(2), xu=np.ones(2))
+
+    def _evaluate(self, X, out, *args, **kwargs):
+        out["F"] = np.column_stack([X[:, 1], 1.0 - X[:, 1] ** 0.5])
+        out["G"] = X[:, [0]] - 0.01
+
+
+def test_the_front_found_is_kept_through_a_population_with_no_feasible_design():
+    """After its first stall a search explores from a fresh population beside the archive; a generation of
+    that population with no feasible design still reads the archive's hypervolume, not zero."""
+    found = converge(_NarrowlyFeasible(), population=20, budget=20_000, seed=2, hypervolume=HV(ref_point=REFERENCE))
+    values = np.array([h[2] for h in found.history])
+    feasible = np.array([h[1] for h in found.history])
+    first = int(np.flatnonzero(values > 0)[0])
+    # The case arose: some later generation's population held no feasible design.
+    assert (feasible[first:] == 0).any()
+    assert np.all(values[first:] > 0)

@@ -19,9 +19,7 @@ def growths(searched: dict[str, dict]) -> dict[str, Growth]:
 
 
 def late_phrase(grown: Growth) -> str:
-    if grown.late_gain != grown.late_gain:
-        return ""
-    return f"its last quarter adding {100 * grown.late_gain:.1f} % of its hypervolume"
+    return f"its last quarter adding {grown.share()} of its hypervolume" if grown.share() else ""
 
 
 def growth_figure(searched: dict[str, dict], hypervolume: dict[str, float], titles: dict[str, str],
@@ -57,6 +55,7 @@ def growth_figure(searched: dict[str, dict], hypervolume: dict[str, float], titl
     fig.update_layout(
         height=420, template="plotly_white", margin=dict(l=80, r=20, t=30, b=60), hovermode="closest",
         xaxis=dict(title_text="designs evaluated", type="log"),
-        yaxis=dict(title_text="share of the front's hypervolume (%)", range=[0, 110]),
+        # Not capped at 100 %: the archive can hold more than the thinned front written from it.
+        yaxis=dict(title_text="share of the front's hypervolume (%)", rangemode="tozero"),
         legend=dict(orientation="v"))
     return fig

@@ -41,12 +41,13 @@ def refresh(folder: Path) -> Path:
             pool = closest if closest is not None else front
             summary.infeasible[name] = Infeasible.from_record(name, record, pool[pool["topology"] == name])
     for name, value in ((manifest.get("convergence") or {}).get("hypervolume") or {}).items():
-        if isinstance(value, (int, float)):
+        # The study window's hypervolume lies in [0, 1]: nothing else (an infinity, a boolean) reaches the plots.
+        if isinstance(value, (int, float)) and not isinstance(value, bool) and 0 <= value <= 1:
             summary.hypervolume[name] = float(value)
     for name, record in ((manifest.get("convergence") or {}).get("topologies") or {}).items():
         # A manifest is a file: only whole numbers and a known reason reach the report.
-        if (isinstance(record, dict) and isinstance(record.get("evaluations"), int)
-                and isinstance(record.get("generations"), int) and record.get("stopped") in report.STOP_PHRASES):
+        if (isinstance(record, dict) and _count(record.get("evaluations")) and _count(record.get("generations"))
+                and record.get("stopped") in report.STOP_PHRASES):
             summary.searched[name] = {k: record[k] for k in ("evaluations", "generations", "stopped")}
             grown = Growth.from_record(record.get("growth"))
             if grown is not None:
@@ -57,6 +58,10 @@ def refresh(folder: Path) -> Path:
     page = report.render(front, study, tech.name, summary, builds, read_check(folder), closest=closest)
     write_text_atomic(folder / "report.html", page)
     return folder / "report.html"
+
+
+def _count(value) -> bool:
+    return isinstance(value, int) and not isinstance(value, bool) and 0 <= value <= 10**12
 
 
 def _closest(folder: Path) -> pd.DataFrame | None:
