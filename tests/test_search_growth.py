@@ -136,31 +136,14 @@ def test_a_front_that_still_creeps_is_not_called_converged():
     assert flat.stopped == "converged" and flat.evaluations < 10_000
 
 
-CONVERGING = """
-title = "Tiny converging study"
-topologies = ["two_stage_miller"]
-objectives = ["power", "gbw"]
-technology = "generic180"
-
-[spec]
-supply = "1.8 V"
-load_capacitance = "2 pF"
-min_gain = "60 dB"
-min_gbw = "2 MHz"
-
-[search]
-seed = 4
-population = 40
-budget = 3000
-"""
-
-
 def test_the_terminal_gives_each_front_s_late_gain_and_the_budget_it_hit(tmp_path):
     import json
 
     from .clirun import ampfront
+    from .test_search_converge import TINY
 
-    (tmp_path / "study.toml").write_text(CONVERGING)
+    # The converging search's own small study, its budget cut to 3,000 evaluations.
+    (tmp_path / "study.toml").write_text(TINY + "population = 40\nbudget = 3000\n")
     proc = ampfront("run", tmp_path / "study.toml", "--out", tmp_path / "out")
     assert proc.returncode == 0, proc.stderr
     record = json.loads((tmp_path / "out" / "manifest.json").read_text())["convergence"]["topologies"]
