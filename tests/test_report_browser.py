@@ -248,28 +248,13 @@ def test_a_hostile_title_renders_as_text(browser, hostile_run):
         opened.close()
 
 
-CONVERGING = """
-title = "Converging study"
-topologies = ["simple_ota", "two_stage_miller"]
-objectives = ["power", "gbw"]
-technology = "generic180"
-
-[spec]
-supply = "1.8 V"
-load_capacitance = "2 pF"
-min_gain = "40 dB"
-
-[search]
-population = 40
-budget = 4000
-"""
-
-
 @pytest.fixture(scope="module")
 def converging_run(tmp_path_factory):
     folder = tmp_path_factory.mktemp("converging")
-    (folder / "study.toml").write_text(CONVERGING)
-    summary = run_study(folder / "study.toml", folder / "out")
+    # The same small study, searched by the converging search (no generations) within 4,000 evaluations.
+    path = _study(folder, "Converging study", "40 dB")
+    path.write_text(path.read_text().replace("population = 12\ngenerations = 3", "population = 40\nbudget = 4000"))
+    summary = run_study(path, folder / "out")
     assert summary.feasible
     return folder / "out"
 
